@@ -1,0 +1,844 @@
+"""Guaranteed bounds on the worst-case critical gain over the tolerance box.
+
+Two routes (DESIGN.md section 8):
+
+* **Interval family** -- every coefficient of ``N`` and ``D`` varies on its
+  own (see `is_interval_family`).  For ``k >= 0`` the coefficients of
+  ``D + k sigma N`` are then independent intervals whose ends are linear in
+  ``k``, so the four Kharitonov polynomials of the family at ``k`` are the
+  pencils ``Kh_i(D) + k Kh_i(sigma N)``.  The family is stable at ``k``
+  exactly when the four pencils are, and each pencil is itself a member, so
+  the worst-case critical gain is the smallest of the four pencils' critical
+  gains.  Exact.
+* **Anything else** -- branch-and-bound over the parameter box.  On a
+  sub-box the coefficients are enclosed by interval arithmetic; Kharitonov on
+  the enclosure is a sufficient test, so the smallest pencil critical gain is
+  a guaranteed *lower* bound for every point of the sub-box.  Critical gains
+  of actual points give *upper* bounds.  Boxes are split until
+  ``upper - lower <= rtol * upper`` or the budget runs out.
+
+Conventions: polynomials are stacks, highest power of ``s`` first; the
+Kharitonov patterns run by power from the constant term up, so they are
+aligned by power, not by array index.  Gains ``k`` are those of
+``P(s, k) = D(s) + sigma k N(s)`` with ``k`` in ``gain_range``; certification
+needs a reference gain ``>= 0`` (the pencil construction holds for ``k >= 0``).
+
+Everything here is pure computation; the CLI does the printing.
+"""
+from __future__ import annotations
+
+import itertools
+import math
+import time
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import numpy as np
+
+from sweep.errors import InputError
+
+__all__ = [
+    "kharitonov_polynomials",
+    "kharitonov_pencils",
+    "pencil_critical_gains",
+    "kharitonov_lower_bound",
+    "branch_and_bound",
+    "is_interval_family",
+    "certify",
+]
+
+# Which end each Kharitonov polynomial takes, by power of s modulo 4
+# (True = upper end).  K1: l l u u, K2: u u l l, K3: l u u l, K4: u l l u.
+_PATTERN = np.array(
+    [
+        [False, False, True, True],
+        [True, True, False, False],
+        [False, True, True, False],
+        [True, False, False, True],
+    ]
+)
+
+# Box status codes of `kharitonov_lower_bound`.
+OK, UNSTABLE_AT_REFERENCE, DEGREE_FAILS = 0, 1, 2
+
+
+# ---------------------------------------------------------------------------
+# Kharitonov polynomials and pencils
+# ---------------------------------------------------------------------------
+
+
+def kharitonov_polynomials(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """The four Kharitonov polynomials of interval polynomials.
+
+    Parameters
+    ----------
+    lo, hi
+        Lower and upper coefficient ends, arrays ``(..., n+1)``, highest power
+        of ``s`` first.
+
+    Returns
+    -------
+    ndarray ``(4, ..., n+1)``
+        ``K1 .. K4`` in the order of METHODS.md, highest power first.  The
+        pattern is applied by power of ``s`` (column ``j`` holds power
+        ``n - j``), so it does not depend on how the arrays are padded.
+    """
+    lo = np.asarray(lo, dtype=float)
+    hi = np.asarray(hi, dtype=float)
+    n = lo.shape[-1] - 1
+    powers = n - np.arange(n + 1)
+    take_hi = _PATTERN[:, powers % 4]  # (4, n+1)
+    take_hi = take_hi.reshape((4,) + (1,) * (lo.ndim - 1) + (n + 1,))
+    return np.where(take_hi, hi[None], lo[None])
+
+
+def _pad_front(a: np.ndarray, width: int) -> np.ndarray:
+    """Pad a stack with leading zero columns so that it has `width` columns (align by power)."""
+    extra = width - a.shape[-1]
+    if extra < 0:
+        raise ValueError("numerator degree exceeds denominator degree")
+    if extra == 0:
+        return a
+    pad = [(0, 0)] * (a.ndim - 1) + [(extra, 0)]
+    return np.pad(a, pad)
+
+
+def kharitonov_pencils(
+    N_lo: np.ndarray,
+    N_hi: np.ndarray,
+    D_lo: np.ndarray,
+    D_hi: np.ndarray,
+    sigma: int,
+) -> tuple[np.ndarray, np.ndarray]:
+    """The four pencils ``Kh_i(D) + k Kh_i(sigma N)`` of an interval loop.
+
+    For ``k >= 0`` the coefficient of power ``p`` of ``D + k sigma N`` ranges
+    over ``[lD_p + k l(sigma N)_p, uD_p + k u(sigma N)_p]`` when ``N`` and
+    ``D`` vary independently; ``-N`` has the interval ``[-uN, -lN]``.
+
+    Parameters
+    ----------
+    N_lo, N_hi
+        Numerator coefficient ends ``(B, m+1)`` (or ``(m+1,)``).
+    D_lo, D_hi
+        Denominator coefficient ends ``(B, n+1)``, ``m <= n``.
+    sigma
+        +1 negative feedback, -1 positive.
+
+    Returns
+    -------
+    (KD, KN)
+        Arrays ``(4, B, n+1)``: pencil ``i`` is ``KD[i] + k KN[i]`` (``sigma``
+        already folded in, so analyse it with ``sigma=+1``).  ``N`` is padded
+        to the degree of ``D``.
+    """
+    D_lo = np.asarray(D_lo, dtype=float)
+    D_hi = np.asarray(D_hi, dtype=float)
+    width = D_lo.shape[-1]
+    N_lo = _pad_front(np.asarray(N_lo, dtype=float), width)
+    N_hi = _pad_front(np.asarray(N_hi, dtype=float), width)
+    if sigma > 0:
+        sN_lo, sN_hi = N_lo, N_hi
+    else:
+        sN_lo, sN_hi = -N_hi, -N_lo
+    return kharitonov_polynomials(D_lo, D_hi), kharitonov_polynomials(sN_lo, sN_hi)
+
+
+# ---------------------------------------------------------------------------
+# Critical gains of pencil stacks
+# ---------------------------------------------------------------------------
+
+
+def _roots_stacked(c: np.ndarray) -> np.ndarray:
+    """Roots of a stack of polynomials ``(V, d+1)`` via stacked companion matrices.
+
+    Rows whose leading coefficients are exactly zero are handled by grouping
+    rows of equal effective degree (a loop over degrees, not over rows).
+    Returns complex ``(V, d)``, NaN-padded.
+    """
+    V, w = c.shape
+    d = w - 1
+    out = np.full((V, max(d, 0)), np.nan + 0j)
+    if d <= 0:
+        return out
+    nz = c != 0
+    first = np.where(nz.any(axis=1), nz.argmax(axis=1), w)  # index of leading nonzero
+    for f in np.unique(first):
+        deg = d - f
+        if deg <= 0:
+            continue
+        rows = np.nonzero(first == f)[0]
+        cc = c[rows, f:] / c[rows, f : f + 1]
+        comp = np.zeros((rows.size, deg, deg))
+        comp[:, 0, :] = -cc[:, 1:]
+        if deg > 1:
+            idx = np.arange(deg - 1)
+            comp[:, idx + 1, idx] = 1.0
+        out[rows, :deg] = np.linalg.eigvals(comp)
+    return out
+
+
+def _stable(P: np.ndarray) -> np.ndarray:
+    """True where every root of the rows of ``P`` has a negative real part."""
+    r = _roots_stacked(P)
+    nd = P.shape[1] - 1
+    degree_ok = P[:, 0] != 0
+    if nd == 0:
+        return degree_ok
+    re = np.where(np.isnan(r.real), -np.inf, r.real)
+    return degree_ok & (re.max(axis=1) < 0)
+
+
+def _even_odd(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Split ``a(jw)`` into ``ae(x) + j w ao(x)`` with ``x = w^2`` (coefficient stacks, highest first)."""
+    n = a.shape[1] - 1
+    ne, no = n // 2 + 1, (n - 1) // 2 + 1 if n >= 1 else 0
+    ae = np.zeros((a.shape[0], ne))
+    ao = np.zeros((a.shape[0], max(no, 1)))
+    for j in range(n + 1):
+        p = n - j
+        if p % 2 == 0:
+            q = p // 2
+            ae[:, ne - 1 - q] += a[:, j] * (-1.0) ** q
+        else:
+            q = (p - 1) // 2
+            ao[:, ao.shape[1] - 1 - q] += a[:, j] * (-1.0) ** q
+    return ae, ao
+
+
+def _polymul_stacked(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Product of two coefficient stacks (rows pairwise), highest power first."""
+    out = np.zeros((a.shape[0], a.shape[1] + b.shape[1] - 1))
+    for i in range(b.shape[1]):
+        out[:, i : i + a.shape[1]] += a * b[:, i : i + 1]
+    return out
+
+
+def _polysub(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    w = max(a.shape[1], b.shape[1])
+    return _pad_front(a, w) - _pad_front(b, w)
+
+
+def _polyval_stacked(c: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Evaluate each row of ``c`` at every column of ``x`` ``(V, R)`` (Horner)."""
+    out = np.zeros(x.shape, dtype=np.result_type(c, x))
+    for j in range(c.shape[1]):
+        out = out * x + c[:, j : j + 1]
+    return out
+
+
+def _critical_gains_direct(
+    N: np.ndarray,
+    D: np.ndarray,
+    *,
+    sigma: int,
+    gain_range: tuple[float, float],
+    reference: float,
+) -> np.ndarray:
+    """Critical gains of ``D + sigma k N`` for a stack (lean stand-in for `analysis`).
+
+    Boundary gains come from the axis-crossing polynomial
+    ``Im[D(jw) N(-jw)] = w Q(w^2)``, the origin (``-D(0)/(sigma N(0))``) and
+    infinity (leading coefficient of ``P`` vanishing); stability on the gain
+    interval that holds the reference is tested at its midpoint (no boundary
+    lies inside it, so one point decides).  Returns ``(V,)``: ``inf`` when no
+    boundary gain lies above the reference inside the range, NaN when the
+    reference gain is unstable.
+    """
+    D = np.asarray(D, dtype=float)
+    A = D
+    Bp = sigma * _pad_front(np.asarray(N, dtype=float), D.shape[1])
+    V = A.shape[0]
+    lo, hi = float(gain_range[0]), float(gain_range[1])
+    cands = []
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cands.append(np.where(Bp[:, -1] != 0, -A[:, -1] / Bp[:, -1], np.nan)[:, None])
+        cands.append(np.where(Bp[:, 0] != 0, -A[:, 0] / Bp[:, 0], np.nan)[:, None])
+        ae, ao = _even_odd(A)
+        be, bo = _even_odd(Bp)
+        Q = _polysub(_polymul_stacked(ao, be), _polymul_stacked(ae, bo))
+        if Q.shape[1] > 1:
+            x = _roots_stacked(Q)
+            xr = x.real
+            real = (np.abs(x.imag) <= 1e-7 * np.abs(x)) & (xr > 0)
+            xr = np.where(real, xr, np.nan)
+            w = np.sqrt(xr)
+            jw = 1j * w
+            Aj = _polyval_stacked(A, jw)
+            Bj = _polyval_stacked(Bp, jw)
+            den = np.abs(Bj) ** 2
+            k = -(Aj * np.conj(Bj)).real / den
+            k = np.where(den > 0, k, np.nan)
+            cands.append(k)
+    C = np.concatenate(cands, axis=1)
+    C = np.where((C > lo) & (C < hi) & np.isfinite(C), C, np.nan)
+    above = np.where(C > reference, C, np.inf).min(axis=1)
+    below = np.where(C <= reference, C, -np.inf).max(axis=1)
+    below = np.maximum(below, lo)
+    upper_end = np.minimum(above, hi)
+    # a test gain strictly inside the interval holding the reference (no boundary inside it)
+    finite = np.isfinite(upper_end)
+    mid = np.where(finite, 0.5 * (below + np.where(finite, upper_end, 0.0)), below + np.maximum(1.0, np.abs(below)))
+    P = A + mid[:, None] * Bp
+    ok = _stable(P)
+    crit = np.where(np.isfinite(above), above, np.inf)
+    return np.where(ok, crit, np.nan) if V else crit
+
+
+def pencil_critical_gains(
+    N: np.ndarray,
+    D: np.ndarray,
+    *,
+    sigma: int,
+    gain_range: tuple[float, float],
+    reference: float,
+) -> np.ndarray:
+    """Critical gains ``(V,)`` of a stack: ``inf`` = no loss in range, NaN = unstable at the reference.
+
+    Uses the lean boundary-gain computation of this module (the same
+    definitions as `sweep.analysis`; DESIGN.md section 3) because the
+    branch-and-bound calls it on thousands of pencils per second and needs
+    only the critical gain.
+    """
+    return _critical_gains_direct(N, D, sigma=sigma, gain_range=gain_range, reference=reference)
+
+
+# ---------------------------------------------------------------------------
+# Kharitonov bound on enclosures
+# ---------------------------------------------------------------------------
+
+
+def kharitonov_lower_bound(
+    N_lo: np.ndarray,
+    N_hi: np.ndarray,
+    D_lo: np.ndarray,
+    D_hi: np.ndarray,
+    *,
+    sigma: int,
+    gain_range: tuple[float, float],
+    reference: float,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Smallest critical gain of the four Kharitonov pencils of each box.
+
+    Parameters
+    ----------
+    N_lo, N_hi, D_lo, D_hi
+        Coefficient enclosures ``(B, m+1)`` and ``(B, n+1)``.
+    sigma, gain_range, reference
+        As in the loop (``reference >= 0``).
+
+    Returns
+    -------
+    (bound, status)
+        ``bound (B,)``: for an independent interval family the exact
+        worst-case critical gain; for a hull enclosure of a dependent family a
+        guaranteed lower bound for every point of the box (``inf`` = stable
+        for every gain of the range above the reference).  ``status (B,)``:
+        `OK`, `UNSTABLE_AT_REFERENCE` (some pencil is unstable at the
+        reference: nothing proven) or `DEGREE_FAILS` (the leading coefficient
+        interval of ``D + k sigma N`` holds 0 at the reference).  The bound is
+        NaN where status is not OK.
+    """
+    if reference < 0:
+        raise ValueError("the Kharitonov pencils need a reference gain >= 0")
+    KD, KN = kharitonov_pencils(N_lo, N_hi, D_lo, D_hi, sigma)
+    B = KD.shape[1]
+    width = KD.shape[2]
+    # leading coefficient interval of the family at the reference gain
+    lead_lo = np.min(KD[:, :, 0] + reference * KN[:, :, 0], axis=0)
+    lead_hi = np.max(KD[:, :, 0] + reference * KN[:, :, 0], axis=0)
+    degree_ok = (lead_lo > 0) | (lead_hi < 0)
+    crit = pencil_critical_gains(
+        KN.reshape(4 * B, width),
+        KD.reshape(4 * B, width),
+        sigma=1,
+        gain_range=gain_range,
+        reference=reference,
+    ).reshape(4, B)
+    unstable = np.isnan(crit).any(axis=0)
+    bound = np.where(unstable, np.nan, np.min(np.where(np.isnan(crit), np.inf, crit), axis=0))
+    status = np.where(~degree_ok, DEGREE_FAILS, np.where(unstable, UNSTABLE_AT_REFERENCE, OK))
+    bound = np.where(status == OK, bound, np.nan)
+    return bound, status.astype(np.int8)
+
+
+# ---------------------------------------------------------------------------
+# Branch-and-bound core (callables in, so it runs on any enclosure)
+# ---------------------------------------------------------------------------
+
+EncloseFn = Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]
+PointFn = Callable[[np.ndarray], np.ndarray]
+
+
+@dataclass
+class _Result:
+    lower: float
+    upper: float
+    boxes: int
+    worst: np.ndarray | None
+    status: str
+    message: str
+    where: np.ndarray | None = None  # (2, p) box of a failure
+
+
+def _relative_gap(lower: float, upper: float) -> float:
+    if math.isnan(lower) or math.isnan(upper):
+        return math.nan
+    if lower == upper:
+        return 0.0
+    if math.isinf(upper):
+        return math.inf
+    return (upper - lower) / abs(upper) if upper != 0 else math.inf
+
+
+def branch_and_bound(
+    enclose: EncloseFn,
+    point_gains: PointFn,
+    low: np.ndarray,
+    high: np.ndarray,
+    *,
+    sigma: int,
+    gain_range: tuple[float, float],
+    reference: float,
+    rtol: float = 0.01,
+    max_boxes: int = 200_000,
+    max_seconds: float = 60.0,
+    batch: int = 64,
+    progress: Callable[[int, float, float], None] | None = None,
+    refine: bool = True,
+) -> _Result:
+    """Bounds on ``min over the box`` of the critical gain.
+
+    Parameters
+    ----------
+    enclose
+        ``enclose(lows (B, p), highs (B, p)) -> (N_lo, N_hi, D_lo, D_hi)``,
+        coefficient enclosures over each box.
+    point_gains
+        ``point_gains(X (V, p)) -> (V,)`` critical gains of actual points
+        (NaN = unstable at the reference).
+    low, high
+        The parameter box ``(p,)``.
+    sigma, gain_range, reference
+        As in the loop.
+    rtol, max_boxes, max_seconds, batch
+        Stop at ``upper - lower <= rtol * upper``, after ``max_boxes``
+        enclosed boxes or ``max_seconds``; ``batch`` boxes are split per
+        iteration (their children enclosed in one call).
+    progress
+        Optional ``progress(boxes, lower, upper)`` after every iteration.
+    refine
+        Polish the best point with a bounded local minimisation.
+
+    Returns
+    -------
+    _Result
+        ``lower`` is guaranteed (up to the floating-point caveat of the pencil
+        root computation); ``upper`` is a critical gain actually attained.
+    """
+    t0 = time.perf_counter()
+    low = np.asarray(low, dtype=float)
+    high = np.asarray(high, dtype=float)
+    p = low.size
+    scale = np.where(high > low, high - low, 1.0)
+
+    best_val = math.inf
+    best_x: np.ndarray | None = None
+
+    def points(X: np.ndarray) -> np.ndarray | None:
+        """Evaluate points; update the upper bound; return the point hitting NaN if any."""
+        nonlocal best_val, best_x
+        g = point_gains(X)
+        bad = np.isnan(g)
+        if bad.any():
+            return X[np.argmax(bad)]
+        i = int(np.argmin(g))
+        if best_x is None or g[i] < best_val:
+            best_val, best_x = float(g[i]), X[i].copy()
+        return None
+
+    # starting points: centre and, for few parameters, every corner
+    centre = 0.5 * (low + high)
+    start = [centre[None]]
+    if p <= 10:
+        corners = np.array(list(itertools.product((0.0, 1.0), repeat=p))) if p else np.zeros((1, 0))
+        start.append(low + corners * (high - low))
+    bad = points(np.concatenate(start))
+    if bad is not None:
+        return _Result(math.nan, math.nan, 0, bad, "unstable_at_reference",
+                       "a point of the box is unstable at the reference gain")
+    if refine and p > 0 and np.isfinite(best_val):
+        _refine(point_gains, low, high, best_x, lambda x, v: points(x[None]))
+        best_x = best_x if best_x is not None else centre
+
+    # open boxes as arrays
+    B_lo = low[None].copy()
+    B_hi = high[None].copy()
+    bound, status = _bounds(enclose, B_lo, B_hi, sigma, gain_range, reference)
+    n_boxes = 1
+    B_L = bound
+    where_fail: np.ndarray | None = None
+
+    def open_lower() -> float:
+        if B_L.size == 0:
+            return best_val
+        return float(min(np.min(B_L), best_val))
+
+    state = "budget"
+    while True:
+        keep = B_L < best_val
+        B_lo, B_hi, B_L, status = B_lo[keep], B_hi[keep], B_L[keep], status[keep]
+        lower = open_lower()
+        if progress is not None:
+            progress(n_boxes, lower, best_val)
+        if B_L.size == 0 or best_val - lower <= rtol * abs(best_val) or lower == best_val:
+            state = "certified"
+            break
+        if n_boxes >= max_boxes or time.perf_counter() - t0 > max_seconds:
+            state = "budget"
+            break
+        K = min(batch, B_L.size, max(1, (max_boxes - n_boxes) // 2))
+        sel = np.argpartition(B_L, K - 1)[:K] if K < B_L.size else np.arange(B_L.size)
+        rest = np.ones(B_L.size, bool)
+        rest[sel] = False
+        s_lo, s_hi, s_L = B_lo[sel], B_hi[sel], B_L[sel]
+        # split along the widest side relative to the parameter's tolerance width
+        rel = (s_hi - s_lo) / scale
+        axis = np.argmax(rel, axis=1)
+        if np.all(rel[np.arange(K), axis] < 1e-12):
+            # boxes are points: nothing more can be proven here
+            state = "stalled"
+            fs = status[sel]
+            if np.any(fs == DEGREE_FAILS):
+                where_fail = np.stack([s_lo[np.argmax(fs == DEGREE_FAILS)], s_hi[np.argmax(fs == DEGREE_FAILS)]])
+            break
+        mid = 0.5 * (s_lo[np.arange(K), axis] + s_hi[np.arange(K), axis])
+        c_lo = np.concatenate([s_lo, s_lo])
+        c_hi = np.concatenate([s_hi, s_hi])
+        c_hi[np.arange(K), axis[np.arange(K)]] = mid
+        c_lo[K + np.arange(K), axis] = mid
+        c_bound, c_status = _bounds(enclose, c_lo, c_hi, sigma, gain_range, reference)
+        n_boxes += 2 * K
+        # a parent's bound holds for its children too
+        parent = np.concatenate([s_L, s_L])
+        c_bound = np.maximum(c_bound, parent)
+        bad = points(0.5 * (c_lo + c_hi))
+        if bad is not None:
+            return _Result(math.nan, math.nan, n_boxes, bad, "unstable_at_reference",
+                           "a point of the box is unstable at the reference gain")
+        B_lo = np.concatenate([B_lo[rest], c_lo])
+        B_hi = np.concatenate([B_hi[rest], c_hi])
+        B_L = np.concatenate([B_L[rest], c_bound])
+        status = np.concatenate([status[rest], c_status])
+        if np.any(status == DEGREE_FAILS):
+            i = int(np.argmax(status == DEGREE_FAILS))
+            rel_i = (B_hi[i] - B_lo[i]) / scale
+            if rel_i.max() < 1e-6:
+                where_fail = np.stack([B_lo[i], B_hi[i]])
+                state = "degree"
+                break
+    lower = open_lower()
+    if state == "degree":
+        msg = "the leading coefficient of the characteristic polynomial can vanish at the reference gain"
+        return _Result(math.nan, best_val, n_boxes, best_x, "degree_invariance_fails", msg, where_fail)
+    if state == "certified":
+        msg = "bounds within the requested tolerance"
+    elif state == "stalled":
+        msg = "boxes shrank to points without closing the gap"
+    else:
+        msg = "budget exhausted before the requested tolerance was reached"
+    return _Result(lower, best_val, n_boxes, best_x, state, msg, where_fail)
+
+
+def _bounds(enclose: EncloseFn, lows, highs, sigma, gain_range, reference):
+    """Kharitonov bounds on boxes; boxes where nothing is proven get the reference gain."""
+    N_lo, N_hi, D_lo, D_hi = enclose(lows, highs)
+    bound, status = kharitonov_lower_bound(
+        N_lo, N_hi, D_lo, D_hi, sigma=sigma, gain_range=gain_range, reference=reference
+    )
+    # Nothing proven: every member stable at the reference has critical gain >= reference.
+    bound = np.where(status == OK, bound, float(reference))
+    return bound, status
+
+
+def _refine(point_gains: PointFn, low, high, x0, record) -> None:
+    """Bounded local minimisation of the critical gain from ``x0`` (only improves the upper bound)."""
+    from scipy.optimize import minimize
+
+    span = np.where(high > low, high - low, 1.0)
+    u0 = (x0 - low) / span
+
+    def f(u):
+        x = low + np.clip(u, 0.0, 1.0) * span
+        g = point_gains(x[None])[0]
+        record(x, g)
+        return g if np.isfinite(g) else 1e300
+
+    try:
+        minimize(f, u0, method="Nelder-Mead", bounds=[(0.0, 1.0)] * u0.size,
+                 options={"maxfev": 60 * max(1, u0.size), "xatol": 1e-6, "fatol": 0.0})
+    except Exception:  # a polish step must never break certification
+        pass
+
+
+# ---------------------------------------------------------------------------
+# Config front
+# ---------------------------------------------------------------------------
+
+
+def is_interval_family(config: Any) -> bool:
+    """True when the loop's coefficients provably form an independent interval family.
+
+    What qualifies (sound and deliberately simple):
+
+    * the plant is given as ``num``/``den`` coefficient lists;
+    * the controller and sensor contain no ``s`` and no uncertain parameter
+      (constants only scale the coefficients);
+    * every coefficient expression uses at most one uncertain parameter, and
+      it appears there exactly once (a single-use expression, whose interval
+      evaluation is the exact range -- from memory, Moore 1966);
+    * no uncertain parameter appears in two coefficients.
+
+    Then the coefficients vary independently, each over an interval, so the
+    coefficient set is a box and Kharitonov's theorem applies.  `certify`
+    additionally checks numerically that each coefficient's range is spanned
+    by the ends of its parameter before it trusts the exact route.
+    """
+    from sweep import expressions as ex
+
+    if config.num is None or config.den is None:
+        return False
+    uncertain = {p.name for p in config.uncertain}
+    for node in (config.controller, config.sensor):
+        if node is None:
+            continue
+        if ex.has_s(node) or (ex.names(node) & uncertain):
+            return False
+    seen: set[str] = set()
+    for node in tuple(config.num) + tuple(config.den):
+        if isinstance(node, (int, float)):
+            continue
+        used = ex.names(node) & uncertain
+        if len(used) > 1 or (used & seen):
+            return False
+        for name in used:
+            if _occurrences(node, name) != 1:
+                return False
+        seen |= used
+    return True
+
+
+def _occurrences(node: Any, name: str) -> int:
+    """How many times the variable `name` occurs in an expression tree (generic dataclass walk)."""
+    import dataclasses
+
+    if isinstance(node, (list, tuple)):
+        return sum(_occurrences(x, name) for x in node)
+    if not dataclasses.is_dataclass(node):
+        return 0
+    count = 0
+    fields = dataclasses.fields(node)
+    # a leaf naming a variable: a node whose only string field equals `name` and has no child nodes
+    strs = [getattr(node, f.name) for f in fields if isinstance(getattr(node, f.name), str)]
+    kids = [getattr(node, f.name) for f in fields if not isinstance(getattr(node, f.name), str)]
+    if name in strs and not any(dataclasses.is_dataclass(k) or isinstance(k, (list, tuple)) for k in kids):
+        return 1
+    for k in kids:
+        count += _occurrences(k, name)
+    return count
+
+
+def _reference_gain(config: Any) -> float:
+    lo = float(config.gain_range[0])
+    ref = float(config.operating_gain) if config.operating_gain is not None else lo
+    if ref < 0:
+        raise InputError(
+            "certify needs a reference gain >= 0; set operating_gain >= 0 or start gain_range at 0",
+            file=config.source, field="loop.operating_gain" if config.operating_gain is not None else "loop.gain_range",
+        )
+    return ref
+
+
+def _interval_bounds(iv: Any) -> tuple[np.ndarray, np.ndarray]:
+    """``(lo, hi)`` arrays from an Interval-like object or a (lo, hi) pair."""
+    if isinstance(iv, tuple) and len(iv) == 2:
+        return np.asarray(iv[0], float), np.asarray(iv[1], float)
+    return np.asarray(iv.lo, float), np.asarray(iv.hi, float)
+
+
+def _config_functions(config: Any):
+    """Enclosure and point functions of a config over its uncertain parameters."""
+    from sweep import loop
+
+    unc = config.uncertain
+    names = [p.name for p in unc]
+    fixed = {p.name: float(p.nominal) for p in config.parameters if not p.uncertain}
+
+    def values(X: np.ndarray) -> dict[str, np.ndarray]:
+        V = X.shape[0]
+        env = {n: np.full(V, v) for n, v in fixed.items()}
+        env.update({n: X[:, i] for i, n in enumerate(names)})
+        return env
+
+    def enclose(lows: np.ndarray, highs: np.ndarray):
+        B = lows.shape[0]
+        lo_env = {n: np.full(B, v) for n, v in fixed.items()}
+        hi_env = dict(lo_env)
+        lo_env.update({n: lows[:, i] for i, n in enumerate(names)})
+        hi_env.update({n: highs[:, i] for i, n in enumerate(names)})
+        N_iv, D_iv = loop.enclose(config, lo_env, hi_env)
+        N_lo, N_hi = _interval_bounds(N_iv)
+        D_lo, D_hi = _interval_bounds(D_iv)
+        return N_lo, N_hi, D_lo, D_hi
+
+    ref = _reference_gain(config)
+
+    def point_gains(X: np.ndarray) -> np.ndarray:
+        N, D = loop.assemble(config, values(X))
+        return pencil_critical_gains(N, D, sigma=config.sigma, gain_range=tuple(config.gain_range), reference=ref)
+
+    return names, enclose, point_gains, values
+
+
+def _kharitonov_route(config, names, enclose, point_gains, values, low, high, ref):
+    """Exact route for a verified interval family; None when the numerical checks fail."""
+    from sweep import loop
+
+    gr = tuple(config.gain_range)
+    N_lo, N_hi, D_lo, D_hi = enclose(low[None], high[None])
+    p = len(names)
+    # one-at-a-time ends: each parameter at its low / high end, others at the low end
+    X = np.repeat(low[None], 2 * p + 1, axis=0)
+    for i in range(p):
+        X[2 * i + 1, i] = high[i]
+        X[2 * i, i] = low[i]
+    N, D = loop.assemble(config, values(X))
+    # the ends must span each coefficient's enclosure (range attained at the parameter ends)
+    hullN = (N.min(axis=0), N.max(axis=0))
+    hullD = (D.min(axis=0), D.max(axis=0))
+
+    def close(a, b):
+        return np.allclose(a, b, rtol=1e-9, atol=1e-300)
+
+    if not (close(hullN[0], N_lo[0]) and close(hullN[1], N_hi[0]) and close(hullD[0], D_lo[0]) and close(hullD[1], D_hi[0])):
+        return None
+    bound, status = kharitonov_lower_bound(
+        hullN[0][None], hullN[1][None], hullD[0][None], hullD[1][None], sigma=config.sigma, gain_range=gr, reference=ref
+    )
+    KD, KN = kharitonov_pencils(hullN[0][None], hullN[1][None], hullD[0][None], hullD[1][None], config.sigma)
+    crit = pencil_critical_gains(KN[:, 0], KD[:, 0], sigma=1, gain_range=gr, reference=ref)
+    # the parameter corner realising each pencil: each parameter moves one coefficient
+    corners = []
+    for i in range(4):
+        x = low.copy()
+        for j in range(p):
+            vlo, vhi = X[2 * j], X[2 * j + 1]
+            Nlo_j, Nhi_j = N[2 * j], N[2 * j + 1]
+            Dlo_j, Dhi_j = D[2 * j], D[2 * j + 1]
+            target_D = KD[i, 0]
+            target_N = config.sigma * KN[i, 0][-N.shape[1]:]
+            err_lo = np.abs(Dlo_j - target_D).sum() + np.abs(Nlo_j - target_N).sum()
+            err_hi = np.abs(Dhi_j - target_D).sum() + np.abs(Nhi_j - target_N).sum()
+            x[j] = vhi[j] if err_hi < err_lo else vlo[j]
+        corners.append(x)
+    corners = np.array(corners)
+    g = point_gains(corners)
+    # the corner must reproduce its pencil (else the structural reading was wrong)
+    same = np.where(np.isnan(crit), np.isnan(g), np.isclose(g, crit, rtol=1e-9) | (np.isinf(g) & np.isinf(crit)))
+    if not np.all(same):
+        return None
+    return bound[0], status[0], crit, corners
+
+
+def certify(
+    config: Any,
+    *,
+    rtol: float = 0.01,
+    max_boxes: int = 200_000,
+    max_seconds: float = 60.0,
+    progress: Callable[[int, float, float], None] | None = None,
+) -> dict[str, Any]:
+    """Guaranteed bounds on the worst-case critical gain over the tolerance box.
+
+    Parameters
+    ----------
+    config
+        A `sweep.config.Config`.
+    rtol
+        Requested relative gap ``(upper - lower) / upper``.
+    max_boxes, max_seconds
+        Budget of the branch-and-bound.
+    progress
+        Optional ``progress(boxes, lower, upper)`` callback (for a progress bar).
+
+    Returns
+    -------
+    dict
+        The ``certify --json`` fields ``method``, ``exact``, ``lower``,
+        ``upper``, ``relative_gap``, ``boxes``, ``worst_parameters``
+        ({name: value}) plus ``status`` ("exact", "certified", "budget",
+        "stalled", "unstable_at_reference", "degree_invariance_fails"),
+        ``message``, ``where`` (a parameter box {name: [low, high]} for a
+        degree failure, else None) and ``elapsed`` seconds.  ``inf`` means
+        no loss of stability within the gain range; NaN bounds go with an
+        unstable-at-reference status.
+    """
+    if not (rtol > 0):
+        raise InputError("rtol must be a positive number, e.g. 0.01", file=config.source, field="--rtol")
+    t0 = time.perf_counter()
+    ref = _reference_gain(config)
+    names, enclose, point_gains, values = _config_functions(config)
+    unc = config.uncertain
+    low = np.array([p.low for p in unc], dtype=float)
+    high = np.array([p.high for p in unc], dtype=float)
+    gr = tuple(config.gain_range)
+
+    def named(x):
+        return None if x is None else {n: float(v) for n, v in zip(names, x)}
+
+    if is_interval_family(config):
+        route = _kharitonov_route(config, names, enclose, point_gains, values, low, high, ref)
+        if route is not None:
+            bound, status, crit, corners = route
+            base = {"method": "kharitonov", "exact": True, "boxes": 1, "where": None}
+            if status == DEGREE_FAILS:
+                return {**base, "lower": math.nan, "upper": math.nan, "relative_gap": math.nan,
+                        "worst_parameters": None, "status": "degree_invariance_fails",
+                        "message": "the leading coefficient can vanish inside the box at the reference gain",
+                        "elapsed": time.perf_counter() - t0}
+            if status == UNSTABLE_AT_REFERENCE:
+                i = int(np.argmax(np.isnan(crit)))
+                return {**base, "lower": math.nan, "upper": math.nan, "relative_gap": math.nan,
+                        "worst_parameters": named(corners[i]), "status": "unstable_at_reference",
+                        "message": "a Kharitonov corner of the box is unstable at the reference gain",
+                        "elapsed": time.perf_counter() - t0}
+            i = int(np.argmin(crit))
+            if progress is not None:
+                progress(1, float(bound), float(bound))
+            return {**base, "lower": float(bound), "upper": float(bound), "relative_gap": 0.0,
+                    "worst_parameters": named(corners[i]), "status": "exact",
+                    "message": "interval family: exact by Kharitonov's theorem",
+                    "elapsed": time.perf_counter() - t0}
+
+    res = branch_and_bound(
+        enclose, point_gains, low, high, sigma=config.sigma, gain_range=gr, reference=ref,
+        rtol=rtol, max_boxes=max_boxes, max_seconds=max_seconds, progress=progress,
+    )
+    where = None
+    msg = res.message
+    if res.where is not None:
+        where = {n: [float(a), float(b)] for n, a, b in zip(names, res.where[0], res.where[1])}
+        msg = f"{msg} near {where}"
+    return {
+        "method": "branch-and-bound",
+        "exact": False,
+        "lower": res.lower,
+        "upper": res.upper,
+        "relative_gap": _relative_gap(res.lower, res.upper),
+        "boxes": int(res.boxes),
+        "worst_parameters": named(res.worst),
+        "status": res.status,
+        "message": msg,
+        "where": where,
+        "elapsed": time.perf_counter() - t0,
+    }
