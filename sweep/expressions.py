@@ -1,0 +1,582 @@
+"""Our own small expression language: tokenizer, recursive-descent parser, evaluators.
+
+Nothing here ever calls `eval`, `exec` or Python's `ast` on user text; the
+text is only ever split into tokens by the rules below.
+
+Grammar (``^`` and ``**`` are the same operator)::
+
+    expr   := term (('+' | '-') term)*
+    term   := unary (('*' | '/') unary)*
+    unary  := ('+' | '-') unary | power
+    power  := atom (('^' | '**') unary)?        # right-associative
+    atom   := NUMBER | NAME | FUNC '(' expr ')' | '(' expr ')'
+
+So ``-x^2`` is ``-(x^2)``, ``2^3^2`` is ``2^(3^2)`` and ``x^-1`` is allowed.
+Numbers: ``12``, ``1.5``, ``.5``, ``3.0e-3``; NaN or infinite values (``nan``,
+``inf``, ``1e999``) are refused. Names: ``[A-Za-z][A-Za-z0-9_]*``; a name that
+starts with ``_`` is refused (documented choice: no dunder or private names at
+all), as are Python keywords, ``nan``/``inf`` and the function names. ``s`` is
+the Laplace variable. Functions: ``sqrt exp log sin cos tan``, one argument.
+Error positions count characters from 1.
+"""
+from __future__ import annotations
+
+import difflib
+import keyword
+import re
+from dataclasses import dataclass
+from typing import Any, Mapping, Union
+
+import numpy as np
+
+from . import intervals as _iv
+from .errors import ExpressionError
+from .intervals import Interval
+from .polynomials import Rational
+
+__all__ = [
+    "Node",
+    "Number",
+    "Name",
+    "S",
+    "Neg",
+    "Binary",
+    "Power",
+    "Call",
+    "FUNCTIONS",
+    "parse",
+    "names",
+    "has_s",
+    "check",
+    "to_text",
+    "evaluate",
+    "evaluate_rational",
+]
+
+FUNCTIONS = ("sqrt", "exp", "log", "sin", "cos", "tan")
+_ALLOWED = "numbers, parameter names, s, + - * / ^ **, parentheses and the functions " + ", ".join(FUNCTIONS)
+# integer powers of expressions in s beyond this would blow up the degree
+MAX_S_POWER = 64
+
+
+# ----------------------------------------------------------------- tree nodes
+@dataclass(frozen=True)
+class Number:
+    """A numeric literal (finite float; the parser only makes non-negative ones)."""
+
+    value: float
+
+
+@dataclass(frozen=True)
+class Name:
+    """A parameter name."""
+
+    id: str
+
+
+@dataclass(frozen=True)
+class S:
+    """The Laplace variable ``s``."""
+
+
+@dataclass(frozen=True)
+class Neg:
+    """Unary minus."""
+
+    operand: "Node"
+
+
+@dataclass(frozen=True)
+class Binary:
+    """``left op right`` with op one of ``+ - * /``."""
+
+    op: str
+    left: "Node"
+    right: "Node"
+
+
+@dataclass(frozen=True)
+class Power:
+    """``base ^ exponent``."""
+
+    base: "Node"
+    exponent: "Node"
+
+
+@dataclass(frozen=True)
+class Call:
+    """``func(arg)`` with func one of `FUNCTIONS`."""
+
+    func: str
+    arg: "Node"
+
+
+Node = Union[Number, Name, S, Neg, Binary, Power, Call]
+
+
+# ------------------------------------------------------------------ tokenizer
+_NUMBER = re.compile(r"(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
+_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
+_OPS = ("**", "+", "-", "*", "/", "^", "(", ")", ",")
+
+
+@dataclass(frozen=True)
+class _Tok:
+    kind: str  # "num", "name", "op", "end"
+    text: str
+    pos: int  # 0-based offset
+    value: float = 0.0
+
+
+def _err(msg: str) -> ExpressionError:
+    return ExpressionError(" ".join(msg.split()))
+
+
+def _tokenize(text: str) -> list[_Tok]:
+    toks: list[_Tok] = []
+    i = 0
+    n = len(text)
+    while i < n:
+        c = text[i]
+        if c in " \t\r\n":
+            i += 1
+            continue
+        m = _NUMBER.match(text, i)
+        if m:
+            j = m.end()
+            if j < n and (text[j].isalnum() or text[j] in "_."):
+                raise _err(
+                    f"malformed number '{text[i:j + 1]}' at position {i + 1}; "
+                    f"write numbers like 12, 0.5 or 3.0e-3 and use '*' between a number and a name"
+                )
+            lit = m.group(0)
+            value = float(lit)
+            if not np.isfinite(value):
+                raise _err(f"number '{lit}' at position {i + 1} is too large (not finite); numbers must be finite")
+            toks.append(_Tok("num", lit, i, value))
+            i = j
+            continue
+        m = _NAME.match(text, i)
+        if m:
+            word = m.group(0)
+            if word.startswith("_"):
+                raise _err(
+                    f"name '{word}' at position {i + 1} is not allowed: names must start with a letter"
+                )
+            if word.lower() in ("nan", "inf", "infinity"):
+                raise _err(
+                    f"'{word}' at position {i + 1} is not allowed: NaN and infinite values cannot appear in an expression"
+                )
+            if keyword.iskeyword(word) or keyword.issoftkeyword(word):
+                raise _err(
+                    f"'{word}' at position {i + 1} is a reserved word and not allowed; allowed: {_ALLOWED}"
+                )
+            toks.append(_Tok("name", word, i))
+            i = m.end()
+            continue
+        for op in _OPS:
+            if text.startswith(op, i):
+                toks.append(_Tok("op", op, i))
+                i += len(op)
+                break
+        else:
+            what = {"'": "string quote \"'\"", '"': "string quote '\"'", ".": "attribute access '.'", "[": "indexing '['",
+                    "]": "']'", ";": "';'", ":": "':'", "=": "'='"}.get(c, repr(c))
+            raise _err(f"unexpected {what} at position {i + 1}; allowed: {_ALLOWED}")
+    toks.append(_Tok("end", "", n))
+    return toks
+
+
+# --------------------------------------------------------------------- parser
+class _Parser:
+    def __init__(self, text: str):
+        self.text = text
+        self.toks = _tokenize(text)
+        self.i = 0
+
+    @property
+    def tok(self) -> _Tok:
+        return self.toks[self.i]
+
+    def _found(self, t: _Tok) -> str:
+        return "the end of the text" if t.kind == "end" else f"'{t.text}' at position {t.pos + 1}"
+
+    def _is(self, *ops: str) -> bool:
+        return self.tok.kind == "op" and self.tok.text in ops
+
+    def parse(self) -> Node:
+        if self.tok.kind == "end":
+            raise _err(f"empty expression; allowed: {_ALLOWED}")
+        node = self.expr()
+        t = self.tok
+        if t.kind != "end":
+            if self._is(")"):
+                raise _err(f"unbalanced parentheses: ')' at position {t.pos + 1} has no matching '('")
+            raise _err(
+                f"unexpected {self._found(t)} after a complete expression; "
+                f"join terms with an operator (+ - * / ^)"
+            )
+        return node
+
+    def expr(self) -> Node:
+        node = self.term()
+        while self._is("+", "-"):
+            op = self.tok.text
+            self.i += 1
+            node = Binary(op, node, self.term())
+        return node
+
+    def term(self) -> Node:
+        node = self.unary()
+        while self._is("*", "/"):
+            op = self.tok.text
+            self.i += 1
+            node = Binary(op, node, self.unary())
+        return node
+
+    def unary(self) -> Node:
+        if self._is("-"):
+            self.i += 1
+            return Neg(self.unary())
+        if self._is("+"):
+            self.i += 1
+            return self.unary()
+        return self.power()
+
+    def power(self) -> Node:
+        base = self.atom()
+        if self._is("^", "**"):
+            self.i += 1
+            return Power(base, self.unary())
+        return base
+
+    def atom(self) -> Node:
+        t = self.tok
+        if t.kind == "num":
+            self.i += 1
+            return Number(t.value)
+        if t.kind == "name":
+            self.i += 1
+            if t.text in FUNCTIONS:
+                return self.call(t)
+            if self._is("("):
+                raise _err(
+                    f"unknown function '{t.text}' at position {t.pos + 1}; allowed functions: {', '.join(FUNCTIONS)}"
+                )
+            if t.text == "s":
+                return S()
+            return Name(t.text)
+        if self._is("("):
+            self.i += 1
+            node = self.expr()
+            if not self._is(")"):
+                raise _err(
+                    f"unbalanced parentheses: '(' at position {t.pos + 1} is not closed "
+                    f"(found {self._found(self.tok)})"
+                )
+            self.i += 1
+            return node
+        raise _err(f"expected a number, a name or '(' but found {self._found(t)}; allowed: {_ALLOWED}")
+
+    def call(self, name: _Tok) -> Node:
+        if not self._is("("):
+            raise _err(f"function '{name.text}' at position {name.pos + 1} needs one argument in parentheses")
+        self.i += 1
+        if self._is(")"):
+            raise _err(f"{name.text}() at position {name.pos + 1} needs exactly one argument")
+        arg = self.expr()
+        if self._is(","):
+            raise _err(f"{name.text} at position {name.pos + 1} takes exactly one argument (found ',')")
+        if not self._is(")"):
+            raise _err(
+                f"unbalanced parentheses: {name.text}( at position {name.pos + 1} is not closed "
+                f"(found {self._found(self.tok)})"
+            )
+        self.i += 1
+        return Call(name.text, arg)
+
+
+def parse(text: str) -> Node:
+    """Parse expression text into a tree of frozen dataclass nodes.
+
+    Parameters
+    ----------
+    text
+        The expression, e.g. ``"Kt / (s*((J*s + B)*(L*s + R) + Kt^2)) / N"``.
+
+    Returns
+    -------
+    Node
+
+    Raises
+    ------
+    ExpressionError
+        One line: what was found, where (position from 1) and what is allowed.
+    """
+    if not isinstance(text, str):
+        raise _err(f"expected expression text, found {type(text).__name__}")
+    return _Parser(text).parse()
+
+
+# ------------------------------------------------------------------ inspection
+def _children(node: Node) -> tuple:
+    if isinstance(node, Neg):
+        return (node.operand,)
+    if isinstance(node, Binary):
+        return (node.left, node.right)
+    if isinstance(node, Power):
+        return (node.base, node.exponent)
+    if isinstance(node, Call):
+        return (node.arg,)
+    return ()
+
+
+def names(node: Node) -> set[str]:
+    """Parameter names used in the tree (``s`` excluded)."""
+    if isinstance(node, Name):
+        return {node.id}
+    out: set[str] = set()
+    for c in _children(node):
+        out |= names(c)
+    return out
+
+
+def has_s(node: Node) -> bool:
+    """Whether the Laplace variable ``s`` occurs in the tree."""
+    if isinstance(node, S):
+        return True
+    return any(has_s(c) for c in _children(node))
+
+
+def _literal_int(node: Node) -> int | None:
+    """The integer value of a literal like ``3`` or ``-2``, else None."""
+    if isinstance(node, Number) and float(node.value).is_integer():
+        return int(node.value)
+    if isinstance(node, Neg):
+        v = _literal_int(node.operand)
+        return None if v is None else -v
+    return None
+
+
+def check(node: Node, known: Any, *, allow_s: bool) -> None:
+    """Check names and the use of ``s``.
+
+    Parameters
+    ----------
+    node
+        A parsed tree.
+    known
+        The known parameter names (any container of str).
+    allow_s
+        Whether the Laplace variable may appear.
+
+    Raises
+    ------
+    ExpressionError
+        Unknown name (with a close-match suggestion), ``s`` where it is not
+        allowed, ``s`` inside a function or an exponent, or a power of an
+        expression in ``s`` whose exponent is not a literal integer.
+    """
+    known = set(known)
+    for nm in sorted(names(node)):
+        if nm not in known:
+            close = difflib.get_close_matches(nm, sorted(known), n=1)
+            if close:
+                hint = f"did you mean '{close[0]}'?"
+            elif known:
+                hint = "known names: " + ", ".join(sorted(known))
+            else:
+                hint = "no parameters are defined"
+            raise _err(f"unknown name '{nm}'; {hint}")
+    if not has_s(node):
+        return
+    if not allow_s:
+        raise _err("the Laplace variable 's' is not allowed in this expression; use parameter names and numbers only")
+    _check_s(node)
+
+
+def _check_s(node: Node) -> None:
+    if isinstance(node, Call):
+        if has_s(node.arg):
+            raise _err(
+                f"'s' inside {node.func}(...) is not allowed: functions apply to parameter expressions only"
+            )
+        return
+    if isinstance(node, Power):
+        if has_s(node.exponent):
+            raise _err(f"'s' in an exponent is not allowed (in '{to_text(node)}')")
+        if has_s(node.base):
+            n = _literal_int(node.exponent)
+            if n is None:
+                raise _err(
+                    f"a power of an expression in s needs a literal integer exponent, found '{to_text(node.exponent)}'"
+                )
+            if abs(n) > MAX_S_POWER:
+                raise _err(f"exponent {n} on an expression in s is too large (at most {MAX_S_POWER})")
+            _check_s(node.base)
+        return
+    for c in _children(node):
+        _check_s(c)
+
+
+# ------------------------------------------------------------------- printing
+_PREC_ADD, _PREC_MUL, _PREC_NEG, _PREC_POW, _PREC_ATOM = 1, 2, 3, 4, 5
+
+
+def _prec(node: Node) -> int:
+    if isinstance(node, Binary):
+        return _PREC_ADD if node.op in "+-" else _PREC_MUL
+    if isinstance(node, Neg):
+        return _PREC_NEG
+    if isinstance(node, Power):
+        return _PREC_POW
+    if isinstance(node, Number) and node.value < 0:
+        return _PREC_ADD  # printed with a sign: always parenthesise
+    return _PREC_ATOM
+
+
+def _num_text(v: float) -> str:
+    v = float(v)
+    if v.is_integer() and abs(v) < 1e15:
+        return str(int(v))
+    return repr(v)
+
+
+def to_text(node: Node) -> str:
+    """Canonical text of a tree; ``parse(to_text(t)) == t`` for parser-made trees.
+
+    Uses ``^`` for powers and the fewest parentheses that keep the tree.
+    """
+    if isinstance(node, Number):
+        return _num_text(node.value)
+    if isinstance(node, Name):
+        return node.id
+    if isinstance(node, S):
+        return "s"
+    if isinstance(node, Call):
+        return f"{node.func}({to_text(node.arg)})"
+    if isinstance(node, Neg):
+        inner = to_text(node.operand)
+        return "-" + (f"({inner})" if _prec(node.operand) < _PREC_NEG else inner)
+    if isinstance(node, Power):
+        b = to_text(node.base)
+        if _prec(node.base) <= _PREC_POW:
+            b = f"({b})"
+        e = to_text(node.exponent)
+        if _prec(node.exponent) < _PREC_NEG:
+            e = f"({e})"
+        return f"{b}^{e}"
+    if isinstance(node, Binary):
+        p = _prec(node)
+        left = to_text(node.left)
+        if _prec(node.left) < p:
+            left = f"({left})"
+        right = to_text(node.right)
+        if _prec(node.right) <= p:
+            right = f"({right})"
+        if node.op in "+-":
+            return f"{left} {node.op} {right}"
+        return f"{left}{node.op}{right}"
+    raise TypeError(f"not an expression node: {node!r}")
+
+
+# ------------------------------------------------------------------ evaluation
+_NUMPY_FUNCS = {"sqrt": np.sqrt, "exp": np.exp, "log": np.log, "sin": np.sin, "cos": np.cos, "tan": np.tan}
+_INTERVAL_FUNCS = {"sqrt": _iv.isqrt, "exp": _iv.iexp, "log": _iv.ilog, "sin": _iv.isin, "cos": _iv.icos, "tan": _iv.itan}
+
+
+def _power(base: Any, node: Power, env: Mapping[str, Any]) -> Any:
+    n = _literal_int(node.exponent)
+    if isinstance(base, Interval):
+        if n is not None:
+            return base ** n
+        return base ** evaluate(node.exponent, env)
+    if n is not None:
+        # integer power: exact sign rules, negative bases fine
+        return np.power(np.asarray(base, dtype=np.float64), float(n))[()]
+    e = evaluate(node.exponent, env)
+    if isinstance(e, Interval):
+        return Interval(base) ** e
+    return np.power(np.asarray(base, dtype=np.float64), e)[()]
+
+
+def evaluate(node: Node, env: Mapping[str, Any]) -> Any:
+    """Evaluate an ``s``-free tree.
+
+    Parameters
+    ----------
+    node
+        A parsed tree without ``s``.
+    env
+        Maps every name to a float, an ndarray ``(V,)`` or an `Interval`.
+
+    Returns
+    -------
+    float, ndarray or Interval
+        The same kind as the inputs (an `Interval` as soon as one input is).
+    """
+    if isinstance(node, Number):
+        return float(node.value)
+    if isinstance(node, Name):
+        try:
+            return env[node.id]
+        except KeyError:
+            raise _err(f"no value for name '{node.id}'") from None
+    if isinstance(node, S):
+        raise _err("'s' cannot be evaluated as a number; use evaluate_rational")
+    if isinstance(node, Neg):
+        return -evaluate(node.operand, env)
+    if isinstance(node, Binary):
+        a = evaluate(node.left, env)
+        b = evaluate(node.right, env)
+        if node.op == "+":
+            return a + b
+        if node.op == "-":
+            return a - b
+        if node.op == "*":
+            return a * b
+        return a / b
+    if isinstance(node, Power):
+        return _power(evaluate(node.base, env), node, env)
+    if isinstance(node, Call):
+        x = evaluate(node.arg, env)
+        if isinstance(x, Interval):
+            return _INTERVAL_FUNCS[node.func](x)
+        return _NUMPY_FUNCS[node.func](x)
+    raise TypeError(f"not an expression node: {node!r}")
+
+
+def evaluate_rational(node: Node, env: Mapping[str, Any]) -> Rational:
+    """Evaluate a tree as a rational function of ``s``.
+
+    ``s``-free sub-trees are evaluated directly with `evaluate` and become
+    constant coefficients (floats, ndarrays or Intervals); they are not
+    expanded as polynomials.
+
+    Raises
+    ------
+    ExpressionError
+        ``s`` inside a function, in an exponent, or a non-integer power of an
+        expression in ``s``.
+    """
+    if not has_s(node):
+        return Rational.constant(evaluate(node, env))
+    if isinstance(node, S):
+        return Rational.s()
+    if isinstance(node, Neg):
+        return -evaluate_rational(node.operand, env)
+    if isinstance(node, Binary):
+        a = evaluate_rational(node.left, env)
+        b = evaluate_rational(node.right, env)
+        if node.op == "+":
+            return a + b
+        if node.op == "-":
+            return a - b
+        if node.op == "*":
+            return a * b
+        return a / b
+    if isinstance(node, (Power, Call)):
+        _check_s(node)  # refuses s in a function or exponent, non-integer powers
+        n = _literal_int(node.exponent)
+        return evaluate_rational(node.base, env) ** n
+    raise TypeError(f"not an expression node: {node!r}")
