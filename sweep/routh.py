@@ -1,0 +1,255 @@
+"""Routh array and Hurwitz determinants of characteristic polynomials.
+
+Two independent stability tests of ``P(s) = a_n s^n + ... + a_0`` (coefficients
+highest power first, numpy order):
+
+* the Routh array, whose first column changes sign once per right-half-plane
+  root (with the epsilon rule for a zero first entry and the
+  auxiliary-polynomial rule for a whole row of zeros), vectorised over a stack
+  of polynomials in `routh_rhp_count`;
+* the Hurwitz matrix and its leading principal minors, and from them the
+  boundary gains of a pencil ``D + sigma k N`` as the real roots in ``k`` of
+  ``Delta_(n-1)``, of ``a_0(k)`` and of ``a_n(k)`` (`hurwitz_boundary_gains`).
+
+The analysis module classifies stable intervals with the Routh count; the
+Hurwitz route is an independent cross-check used by the tests.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+__all__ = [
+    "routh_array",
+    "routh_rhp_count",
+    "hurwitz_matrix",
+    "hurwitz_determinants",
+    "hurwitz_boundary_gains",
+]
+
+# An entry is "zero" when it is this small relative to the row above it.
+_ZERO_RTOL = 1e-11
+# Value of epsilon (relative to the row above) for the epsilon rule.
+_EPSILON = 1e-9
+
+
+def _routh_core(P: np.ndarray, keep_rows: bool):
+    """Routh array of a stack ``(V, n+1)``; returns first column, rows, flags."""
+    P = np.asarray(P, dtype=float)
+    V, n1 = P.shape
+    n = n1 - 1
+    width = n // 2 + 1
+    r0 = np.zeros((V, width))
+    r1 = np.zeros((V, width))
+    r0[:, : len(range(0, n1, 2))] = P[:, 0::2]
+    r1[:, : len(range(1, n1, 2))] = P[:, 1::2]
+    first = np.empty((V, n1))
+    first[:, 0] = r0[:, 0]
+    zero_row = np.zeros(V, dtype=bool)  # an auxiliary polynomial appeared
+    used_eps = np.zeros(V, dtype=bool)
+    rows = [r0.copy()] if keep_rows else None
+    prev, cur = r0, r1
+    for i in range(n):
+        # `cur` is the row of power n-1-i, `prev` the row of power n-i.
+        scale = np.max(np.abs(prev), axis=1)
+        scale = np.where(scale > 0, scale, 1.0)
+        tiny = _ZERO_RTOL * scale
+        all_zero = np.all(np.abs(cur) <= tiny[:, None], axis=1)
+        if np.any(all_zero):
+            # Row of zeros: replace by the derivative of the auxiliary polynomial
+            # built from the row above (powers n-i, n-i-2, ...).
+            powers = (n - i) - 2 * np.arange(width)
+            deriv = prev * np.clip(powers, 0, None)[None, :]
+            cur = np.where(all_zero[:, None], deriv, cur)
+            zero_row |= all_zero
+        small_first = np.abs(cur[:, 0]) <= tiny
+        if np.any(small_first):
+            # Epsilon rule: a small positive number stands for the zero entry.
+            cur = cur.copy()
+            cur[:, 0] = np.where(small_first, _EPSILON * scale, cur[:, 0])
+            used_eps |= small_first
+        first[:, i + 1] = cur[:, 0]
+        if keep_rows:
+            rows.append(cur.copy())
+        if i < n - 1:
+            new = np.zeros((V, width))
+            new[:, :-1] = (cur[:, :1] * prev[:, 1:] - prev[:, :1] * cur[:, 1:]) / cur[:, :1]
+            prev, cur = cur, new
+    return first, rows, zero_row, used_eps
+
+
+def _sign_changes(first: np.ndarray) -> np.ndarray:
+    s = np.sign(first)
+    return np.sum(s[:, 1:] * s[:, :-1] < 0, axis=1)
+
+
+def routh_array(coeffs) -> tuple[np.ndarray, int]:
+    """Routh array of one polynomial and its number of right-half-plane roots.
+
+    Parameters
+    ----------
+    coeffs
+        Coefficients ``a_n ... a_0``, highest power first, ``a_n != 0``.
+
+    Returns
+    -------
+    array
+        ``(n+1, n//2+1)`` array, row ``i`` belongs to ``s^(n-i)``. A zero first
+        entry is shown replaced by a small epsilon; a row of zeros is shown
+        replaced by the derivative of the auxiliary polynomial above it.
+    rhp_count
+        Sign changes in the first column (roots with positive real part; roots
+        on the imaginary axis show up through the auxiliary polynomial, not
+        here).
+
+    Examples
+    --------
+    >>> routh_array([1.0, 3.0, 3.0, 1.0])[1]
+    0
+    """
+    c = np.atleast_1d(np.asarray(coeffs, dtype=float))
+    c = np.trim_zeros(c, "f")
+    if c.size == 0:
+        raise ValueError("routh_array needs a nonzero polynomial")
+    first, rows, _, _ = _routh_core(c[None, :], keep_rows=True)
+    arr = np.stack([r[0] for r in rows])
+    return arr, int(_sign_changes(first)[0])
+
+
+def routh_rhp_count(P: np.ndarray, *, return_flags: bool = False):
+    """Right-half-plane root counts of a stack of polynomials by the Routh array.
+
+    Parameters
+    ----------
+    P
+        ``(V, n+1)`` coefficients, highest power first, leading entries nonzero.
+    return_flags
+        Also return ``(axis_suspect, used_epsilon)`` boolean arrays: a row of
+        zeros appeared (roots symmetric about the origin, possibly on the
+        imaginary axis), or the epsilon rule was used.
+
+    Returns
+    -------
+    ndarray of int
+        ``(V,)`` counts (with flags if asked).
+    """
+    P = np.asarray(P, dtype=float)
+    if P.ndim == 1:
+        P = P[None, :]
+    first, _, zero_row, used_eps = _routh_core(P, keep_rows=False)
+    count = _sign_changes(first)
+    if return_flags:
+        return count, zero_row, used_eps
+    return count
+
+
+def hurwitz_matrix(coeffs) -> np.ndarray:
+    """Hurwitz matrix of a polynomial or a stack of polynomials.
+
+    Parameters
+    ----------
+    coeffs
+        ``(..., n+1)`` coefficients ``a_n ... a_0`` highest power first.
+
+    Returns
+    -------
+    ndarray
+        ``(..., n, n)``; entry ``(i, j)`` is the coefficient at index
+        ``2(j+1) - (i+1)`` of the list ``a_n, a_(n-1), ...`` (0 outside).
+    """
+    c = np.asarray(coeffs, dtype=float)
+    n = c.shape[-1] - 1
+    H = np.zeros(c.shape[:-1] + (n, n))
+    for i in range(n):
+        for j in range(n):
+            idx = 2 * j + 1 - i
+            if 0 <= idx <= n:
+                H[..., i, j] = c[..., idx]
+    return H
+
+
+def hurwitz_determinants(coeffs) -> np.ndarray:
+    """Leading principal minors ``Delta_1 ... Delta_n`` of the Hurwitz matrix.
+
+    Parameters
+    ----------
+    coeffs
+        ``(..., n+1)`` coefficients highest power first.
+
+    Returns
+    -------
+    ndarray
+        ``(..., n)``; with ``a_n > 0`` the polynomial is stable exactly when
+        all are positive.
+    """
+    H = hurwitz_matrix(coeffs)
+    n = H.shape[-1]
+    return np.stack([np.linalg.det(H[..., : i + 1, : i + 1]) for i in range(n)], axis=-1)
+
+
+def hurwitz_boundary_gains(num, den, *, sigma: float = 1.0, gain_range=(0.0, math.inf)):
+    """Boundary gains of one loop from Hurwitz determinants (validation route).
+
+    ``Delta_(n-1)`` of ``P(s, k) = D + sigma k N`` is a polynomial in ``k`` of
+    degree at most ``n-1``; it is found by evaluating at Chebyshev sample
+    gains and interpolating. Its real roots where ``P`` really has a pair
+    ``+-jw`` (not a real pair ``+-a``) are boundary gains, together with the
+    roots of ``a_0(k)`` and ``a_n(k)``.
+
+    Parameters
+    ----------
+    num, den
+        Coefficient lists of ``N`` and ``D`` (highest power first).
+    sigma
+        ``+1`` negative feedback, ``-1`` positive.
+    gain_range
+        ``(lo, hi)``; only gains strictly inside count.
+
+    Returns
+    -------
+    gains, frequencies
+        Sorted 1-D arrays (frequency 0 for the origin, inf for infinity).
+    """
+    N = np.trim_zeros(np.asarray(num, dtype=float), "f")
+    D = np.trim_zeros(np.asarray(den, dtype=float), "f")
+    n = D.size - 1
+    Np = np.zeros(n + 1)
+    Np[n + 1 - N.size:] = N
+    lo, hi = gain_range
+    found: list[tuple[float, float]] = []
+
+    def inside(k):
+        return np.isfinite(k) and lo < k < hi
+
+    if Np[-1] != 0:
+        k = -D[-1] / (sigma * Np[-1])
+        if inside(k):
+            found.append((k, 0.0))
+    if Np[0] != 0:
+        k = -D[0] / (sigma * Np[0])
+        if inside(k):
+            found.append((k, math.inf))
+    if n >= 2:
+        deg = n - 1
+        scale = max(1.0, np.max(np.abs(D)) / max(np.max(np.abs(Np)), 1e-300))
+        x = np.cos(np.pi * (np.arange(deg + 1) + 0.5) / (deg + 1))
+        ks = scale * x
+        vals = np.array([hurwitz_determinants(D + sigma * kk * Np)[n - 2] for kk in ks])
+        cheb = np.polynomial.Chebyshev.fit(ks, vals, deg, domain=[-scale, scale])
+        for r in cheb.roots():
+            if abs(r.imag) > 1e-7 * max(1.0, abs(r)):
+                continue
+            k = float(r.real)
+            if not inside(k):
+                continue
+            roots = np.roots(D + sigma * k * Np)
+            # An axis pair has (near) zero real part; a real pair +-a does not.
+            near = roots[np.abs(roots.real) <= 1e-6 * max(1.0, np.max(np.abs(roots)))]
+            near = near[near.imag > 0]
+            if near.size:
+                found.append((k, float(np.max(near.imag))))
+    found.sort()
+    g = np.array([f[0] for f in found], dtype=float)
+    w = np.array([f[1] for f in found], dtype=float)
+    return g, w
