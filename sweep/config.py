@@ -100,3 +100,375 @@ class Config:
     def nominal_values(self) -> dict[str, np.ndarray]:
         """Parameter values of the nominal variant, each an array of shape (1,)."""
         return {p.name: np.array([p.nominal], dtype=float) for p in self.parameters}
+
+
+# ---------------------------------------------------------------------------
+# Loading
+# ---------------------------------------------------------------------------
+
+import difflib  # noqa: E402
+import hashlib  # noqa: E402
+import re  # noqa: E402
+import tomllib  # noqa: E402
+
+from .errors import ExpressionError, InputError  # noqa: E402
+
+_TOP_KEYS = ("title", "parameters", "plant", "loop", "sweep", "locus")
+_PARAM_KEYS = ("nominal", "tol", "low", "high", "dist", "units")
+_PLANT_KEYS = ("transfer", "num", "den")
+_LOOP_KEYS = ("controller", "sensor", "feedback", "gain_range", "operating_gain")
+_SWEEP_KEYS = ("designs", "samples", "levels", "seed", "chunk_size", "max_variants")
+_LOCUS_KEYS = ("points", "keep")
+_RESERVED_NAMES = ("s", "sqrt", "exp", "log", "sin", "cos", "tan", "k", "inf", "nan")
+_NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+
+
+def _suggest(word: str, choices: Any) -> str:
+    """' (did you mean 'x'?)' for a close match, else the list of choices."""
+    choices = sorted(choices)
+    close = difflib.get_close_matches(word, choices, n=1)
+    if close:
+        return f"did you mean '{close[0]}'?"
+    return "expected one of " + ", ".join(choices)
+
+
+class _Reader:
+    """Small helpers that raise `InputError` naming the file and field."""
+
+    def __init__(self, source: str):
+        self.source = source
+
+    def fail(self, field_name: str | None, message: str) -> InputError:
+        return InputError(message, file=self.source, field=field_name)
+
+    def table(self, data: Any, field_name: str) -> dict:
+        if not isinstance(data, dict):
+            raise self.fail(field_name, f"expected a table, got {_kind(data)}; write [{field_name}] with key = value lines")
+        return data
+
+    def known_keys(self, data: dict, allowed: tuple[str, ...], prefix: str) -> None:
+        for key in data:
+            if key not in allowed:
+                where = f"{prefix}.{key}" if prefix else key
+                raise self.fail(where, f"unknown key '{key}'; {_suggest(key, allowed)}")
+
+    def number(self, value: Any, field_name: str, *, allow_inf: bool = False) -> float:
+        if isinstance(value, str) and allow_inf and value.strip().lower() in ("inf", "+inf", "infinity"):
+            return math.inf
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise self.fail(field_name, f"expected a number, got {_kind(value)} {value!r}")
+        f = float(value)
+        if math.isnan(f):
+            raise self.fail(field_name, "NaN is not allowed; give a number")
+        if math.isinf(f) and not (allow_inf and f > 0):
+            raise self.fail(field_name, "infinite value is not allowed here; give a finite number")
+        return f
+
+    def integer(self, value: Any, field_name: str, *, minimum: int) -> int:
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise self.fail(field_name, f"expected a whole number, got {_kind(value)} {value!r}")
+        if value < minimum:
+            raise self.fail(field_name, f"must be at least {minimum}, got {value}")
+        return int(value)
+
+    def string(self, value: Any, field_name: str) -> str:
+        if not isinstance(value, str):
+            raise self.fail(field_name, f"expected a string, got {_kind(value)} {value!r}")
+        return value
+
+
+def _kind(value: Any) -> str:
+    if isinstance(value, bool):
+        return "a boolean"
+    if isinstance(value, (int, float)):
+        return "a number"
+    if isinstance(value, str):
+        return "a string"
+    if isinstance(value, list):
+        return "a list"
+    if isinstance(value, dict):
+        return "a table"
+    return type(value).__name__
+
+
+def _tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> tuple[float, float]:
+    """(minus, plus) absolute deviations from a `tol` value.
+
+    Accepts "10%", an absolute number, or a two-element list [minus, plus] of
+    either form (e.g. ["20%", "80%"] for -20/+80 %).
+    """
+    if isinstance(value, list):
+        if len(value) != 2:
+            raise r.fail(field_name, f"a tolerance list needs two entries [minus, plus], got {len(value)}")
+        minus = _one_tolerance(r, value[0], nominal, f"{field_name}[0]")
+        plus = _one_tolerance(r, value[1], nominal, f"{field_name}[1]")
+        return minus, plus
+    t = _one_tolerance(r, value, nominal, field_name)
+    return t, t
+
+
+def _one_tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> float:
+    if isinstance(value, str):
+        text = value.strip().lstrip("+-").strip()
+        if not text.endswith("%"):
+            raise r.fail(field_name, f"tolerance string {value!r} must end in '%' (e.g. \"10%\"); give an absolute tolerance as a number")
+        try:
+            pct = float(text[:-1])
+        except ValueError:
+            raise r.fail(field_name, f"cannot read {value!r} as a percentage; write e.g. \"10%\"") from None
+        if not math.isfinite(pct):
+            raise r.fail(field_name, f"tolerance {value!r} is not a finite percentage")
+        if pct < 0:
+            raise r.fail(field_name, "tolerance must not be negative")
+        if pct >= 100:
+            raise r.fail(field_name, f"a tolerance of {pct:g}% lets the value reach or cross zero; give explicit low/high bounds if that is intended")
+        return abs(nominal) * pct / 100.0
+    t = r.number(value, field_name)
+    if t < 0:
+        raise r.fail(field_name, "tolerance must not be negative; give the +- half-width")
+    return t
+
+
+def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
+    where = f"parameters.{name}"
+    if not _NAME_RE.match(name):
+        raise r.fail(where, f"parameter name {name!r} must start with a letter and use only letters, digits and _")
+    if name in _RESERVED_NAMES:
+        raise r.fail(where, f"'{name}' is reserved (s is the Laplace variable, k the loop gain, the rest are functions); rename the parameter")
+    if not isinstance(spec, dict):
+        # A bare number is a fixed parameter.
+        value = r.number(spec, where)
+        return Parameter(name, value, value, value, "fixed", "")
+    r.known_keys(spec, _PARAM_KEYS, where)
+    if "nominal" not in spec:
+        raise r.fail(where, "missing 'nominal'; write nominal = <value>")
+    nominal = r.number(spec["nominal"], f"{where}.nominal")
+    units = r.string(spec.get("units", ""), f"{where}.units")
+    dist = r.string(spec.get("dist", "uniform"), f"{where}.dist")
+    if dist not in DISTRIBUTIONS:
+        raise r.fail(f"{where}.dist", f"unknown distribution '{dist}'; {_suggest(dist, DISTRIBUTIONS)}")
+    has_tol = "tol" in spec
+    has_bounds = "low" in spec or "high" in spec
+    if has_tol and has_bounds:
+        raise r.fail(where, "give either 'tol' or 'low'/'high', not both")
+    if dist == "fixed":
+        if has_tol or has_bounds:
+            raise r.fail(f"{where}.dist", "a fixed parameter takes no tolerance; remove tol/low/high or choose dist = \"uniform\"")
+        return Parameter(name, nominal, nominal, nominal, "fixed", units)
+    if has_tol:
+        minus, plus = _tolerance(r, spec["tol"], nominal, f"{where}.tol")
+        low, high = nominal - minus, nominal + plus
+    elif has_bounds:
+        if "low" not in spec or "high" not in spec:
+            missing = "low" if "low" not in spec else "high"
+            raise r.fail(where, f"missing '{missing}'; explicit bounds need both low and high")
+        low = r.number(spec["low"], f"{where}.low")
+        high = r.number(spec["high"], f"{where}.high")
+        if low > high:
+            raise r.fail(f"{where}.low", f"low ({low:g}) is greater than high ({high:g}); swap them")
+        if not (low <= nominal <= high):
+            raise r.fail(f"{where}.nominal", f"nominal ({nominal:g}) lies outside [low, high] = [{low:g}, {high:g}]")
+    else:
+        if dist == "normal":
+            raise r.fail(where, "a normal distribution needs a tolerance (tol is 3 sigma); add tol = \"5%\" or similar")
+        return Parameter(name, nominal, nominal, nominal, "fixed", units)
+    if low == high:
+        return Parameter(name, nominal, nominal, nominal, "fixed", units)
+    return Parameter(name, nominal, low, high, dist, units)
+
+
+def _expression(r: _Reader, value: Any, field_name: str, known: set[str], *, allow_s: bool):
+    from . import expressions
+
+    if isinstance(value, bool):
+        raise r.fail(field_name, "expected an expression or a number, got a boolean")
+    if isinstance(value, (int, float)):
+        r.number(value, field_name)
+        text = repr(float(value))
+    elif isinstance(value, str):
+        text = value
+    else:
+        raise r.fail(field_name, f"expected an expression string or a number, got {_kind(value)}")
+    try:
+        node = expressions.parse(text)
+        expressions.check(node, known, allow_s=allow_s)
+    except ExpressionError as exc:
+        raise r.fail(field_name, str(exc)) from None
+    return node
+
+
+def _coefficients(r: _Reader, value: Any, field_name: str, known: set[str]):
+    if not isinstance(value, list) or not value:
+        raise r.fail(field_name, "expected a non-empty list of coefficients, highest power of s first")
+    return tuple(_expression(r, v, f"{field_name}[{i}]", known, allow_s=False) for i, v in enumerate(value))
+
+
+def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = None) -> Config:
+    """Build a validated `Config` from TOML text.
+
+    Parameters
+    ----------
+    text
+        The TOML document.
+    source
+        The file name shown in error messages.
+    raw
+        The file's bytes (for the sha256); defaults to ``text`` encoded as UTF-8.
+
+    Raises
+    ------
+    InputError
+        For anything malformed, with the field and the fix.
+    """
+    r = _Reader(source)
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise r.fail(None, f"not valid TOML ({exc}); check the syntax near that line") from None
+    r.known_keys(data, _TOP_KEYS, "")
+
+    title = r.string(data.get("title", ""), "title") if "title" in data else ""
+
+    params_raw = r.table(data.get("parameters", {}), "parameters")
+    parameters = tuple(_parameter(r, name, spec) for name, spec in params_raw.items())
+    known = {p.name for p in parameters}
+
+    if "plant" not in data:
+        raise r.fail("plant", "missing [plant] table; give transfer = \"...\" or num/den lists")
+    plant = r.table(data["plant"], "plant")
+    r.known_keys(plant, _PLANT_KEYS, "plant")
+    transfer = num = den = None
+    if "transfer" in plant:
+        if "num" in plant or "den" in plant:
+            raise r.fail("plant", "give either transfer or num/den, not both")
+        transfer = _expression(r, plant["transfer"], "plant.transfer", known, allow_s=True)
+    elif "num" in plant and "den" in plant:
+        num = _coefficients(r, plant["num"], "plant.num", known)
+        den = _coefficients(r, plant["den"], "plant.den", known)
+    elif "num" in plant or "den" in plant:
+        missing = "den" if "num" in plant else "num"
+        raise r.fail(f"plant.{missing}", f"missing '{missing}'; coefficient lists need both num and den")
+    else:
+        raise r.fail("plant", "missing the plant: give transfer = \"...\" or num/den lists")
+
+    loop = r.table(data.get("loop", {}), "loop")
+    r.known_keys(loop, _LOOP_KEYS, "loop")
+    controller = _expression(r, loop.get("controller", 1), "loop.controller", known, allow_s=True)
+    sensor = _expression(r, loop.get("sensor", 1), "loop.sensor", known, allow_s=True)
+    feedback = r.string(loop.get("feedback", "negative"), "loop.feedback")
+    if feedback not in ("negative", "positive"):
+        raise r.fail("loop.feedback", f"unknown feedback '{feedback}'; expected negative or positive")
+    gain_range = (0.0, math.inf)
+    if "gain_range" in loop:
+        g = loop["gain_range"]
+        if not isinstance(g, list) or len(g) != 2:
+            raise r.fail("loop.gain_range", "expected [low, high], e.g. [0, inf]")
+        lo = r.number(g[0], "loop.gain_range[0]")
+        hi = r.number(g[1], "loop.gain_range[1]", allow_inf=True)
+        if lo < 0:
+            raise r.fail("loop.gain_range[0]", "gains must not be negative; for a negative gain use feedback = \"positive\"")
+        if not lo < hi:
+            raise r.fail("loop.gain_range", f"low ({lo:g}) must be below high ({hi:g})")
+        gain_range = (lo, hi)
+    operating_gain = None
+    if "operating_gain" in loop:
+        operating_gain = r.number(loop["operating_gain"], "loop.operating_gain")
+        if not gain_range[0] < operating_gain < gain_range[1]:
+            raise r.fail("loop.operating_gain", f"{operating_gain:g} lies outside gain_range ({gain_range[0]:g}, {gain_range[1]:g}); move it inside")
+
+    sweep_raw = r.table(data.get("sweep", {}), "sweep")
+    r.known_keys(sweep_raw, _SWEEP_KEYS, "sweep")
+    defaults = SweepSettings()
+    designs = defaults.designs
+    if "designs" in sweep_raw:
+        d = sweep_raw["designs"]
+        if isinstance(d, str):
+            d = [d]
+        if not isinstance(d, list) or not d:
+            raise r.fail("sweep.designs", "expected a non-empty list, e.g. [\"nominal\", \"corners\"]")
+        for i, name in enumerate(d):
+            name = r.string(name, f"sweep.designs[{i}]")
+            if name not in DESIGNS:
+                raise r.fail(f"sweep.designs[{i}]", f"unknown design '{name}'; {_suggest(name, DESIGNS)}")
+        if len(set(d)) != len(d):
+            raise r.fail("sweep.designs", "a design is listed twice; list each once")
+        designs = tuple(d)
+    settings = SweepSettings(
+        designs=designs,
+        samples=r.integer(sweep_raw.get("samples", defaults.samples), "sweep.samples", minimum=1),
+        levels=r.integer(sweep_raw.get("levels", defaults.levels), "sweep.levels", minimum=2),
+        seed=r.integer(sweep_raw.get("seed", defaults.seed), "sweep.seed", minimum=0),
+        chunk_size=r.integer(sweep_raw.get("chunk_size", defaults.chunk_size), "sweep.chunk_size", minimum=1),
+        max_variants=r.integer(sweep_raw.get("max_variants", defaults.max_variants), "sweep.max_variants", minimum=1),
+    )
+
+    locus_raw = r.table(data.get("locus", {}), "locus")
+    r.known_keys(locus_raw, _LOCUS_KEYS, "locus")
+    ldefaults = LocusSettings()
+    points = r.integer(locus_raw.get("points", ldefaults.points), "locus.points", minimum=3)
+    keep_text = r.string(locus_raw.get("keep", ldefaults.keep), "locus.keep")
+    keep, keep_count = _keep(r, keep_text)
+
+    config = Config(
+        title=title,
+        parameters=parameters,
+        transfer=transfer,
+        num=num,
+        den=den,
+        controller=controller,
+        sensor=sensor,
+        feedback=feedback,
+        gain_range=gain_range,
+        operating_gain=operating_gain,
+        sweep=settings,
+        locus=LocusSettings(points=points, keep=keep, keep_count=keep_count),
+        source=source,
+        text=text,
+        sha256=hashlib.sha256(raw if raw is not None else text.encode("utf-8")).hexdigest(),
+    )
+    from . import loop as _loop
+
+    _loop.validate(config)
+    return config
+
+
+def _keep(r: _Reader, text: str) -> tuple[str, int]:
+    if text in ("all", "none", "corners"):
+        return text, 0
+    m = re.fullmatch(r"random:(\d+)", text.strip())
+    if m and int(m.group(1)) > 0:
+        return "random", int(m.group(1))
+    raise r.fail("locus.keep", f"unknown keep '{text}'; expected all, none, corners or \"random:N\" with N > 0")
+
+
+def load_config(path: Any) -> Config:
+    """Read and validate a config file.
+
+    Parameters
+    ----------
+    path
+        Path of the TOML file.
+
+    Returns
+    -------
+    Config
+        The frozen, validated config; ``source`` is the path as given.
+
+    Raises
+    ------
+    InputError
+        When the file cannot be read, is not TOML, or any field is wrong.
+    """
+    source = str(path)
+    try:
+        with open(path, "rb") as fh:
+            raw = fh.read()
+    except IsADirectoryError:
+        raise InputError("is a folder, not a config file; give the path of a .toml file", file=source) from None
+    except OSError as exc:
+        raise InputError(f"cannot read the file ({exc.strerror or exc}); check the path", file=source) from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError("not a UTF-8 text file; save the config as UTF-8 TOML", file=source) from None
+    return parse_config(text, source=source, raw=raw)

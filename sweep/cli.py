@@ -1,0 +1,267 @@
+"""Command line: the only module that parses arguments and prints.
+
+Exit status: 0 done, 2 bad input, 1 anything else.
+"""
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+import warnings
+from typing import Any, Sequence
+
+import numpy as np
+
+from . import __version__
+from .errors import InputError, SweepError
+
+EXIT_OK, EXIT_FAILURE, EXIT_BAD_INPUT = 0, 1, 2
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports usage errors in one line with exit status 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.exit(EXIT_BAD_INPUT, f"{self.prog}: {message} (see '{self.prog} --help')\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of every sub-command."""
+    parser = _Parser(
+        prog="sweep",
+        description=(
+            "Robustness sweeps of feedback loops whose plant parameters carry tolerances: "
+            "critical gains, stable gain intervals, root loci and certified worst cases "
+            "over the whole tolerance box."
+        ),
+    )
+    parser.add_argument("--version", action="version", version=f"sweep {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show a full traceback on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    p = sub.add_parser("check", help="validate a config and analyse the nominal loop",
+                       description="Validate CONFIG, print the parameter table, the nominal open loop and its stability analysis, and estimate the run time.")
+    p.add_argument("config", metavar="CONFIG", help="TOML config file")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+
+    p = sub.add_parser("run", help="run the sweep and store the results (resumable)",
+                       description="Generate the variants of CONFIG, analyse each one in parallel chunks and store the dataset as netCDF. Finished chunks survive a crash; rerun (or --resume) to finish.")
+    p.add_argument("config", metavar="CONFIG", help="TOML config file")
+    p.add_argument("-o", "--out", metavar="OUT", help="output .nc file (default results/<config stem>.nc)")
+    p.add_argument("-j", "--jobs", type=int, metavar="N", help="parallel processes (default: all cores; 1 runs in-process)")
+    p.add_argument("--resume", action="store_true", help="continue an interrupted run (a plain rerun does the same)")
+    p.add_argument("--scheduler", metavar="ADDR", help="Dask distributed scheduler, e.g. tcp://10.0.0.5:8786")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+    p = sub.add_parser("query", help="worst case, robust gain interval, quantiles, sensitivity",
+                       description="Summarise a result file: the worst-case critical gain and its variant, the robust gain interval, quantiles and the parameters' influence.")
+    p.add_argument("result", metavar="RESULT", help="result .nc file written by 'sweep run'")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+
+    p = sub.add_parser("plot", help="draw loci, limits, envelopes and distributions",
+                       description="Draw one view of a result file. The format follows the file extension (.png, .svg, .pdf).")
+    p.add_argument("result", metavar="RESULT", help="result .nc file written by 'sweep run'")
+    p.add_argument("--what", required=True, choices=["locus", "limits", "envelope", "crossings", "plane"],
+                   help="which view to draw")
+    p.add_argument("-o", "--out", metavar="FILE", help="image file (default: RESULT stem + '-WHAT.png')")
+    p.add_argument("--params", nargs=2, metavar=("A", "B"), help="the two parameters of --what plane")
+
+    p = sub.add_parser("certify", help="guaranteed bounds on the worst-case critical gain",
+                       description="Bound the worst-case critical gain over the whole tolerance box: exactly by Kharitonov's theorem for interval families, else by branch-and-bound with interval arithmetic.")
+    p.add_argument("config", metavar="CONFIG", help="TOML config file")
+    p.add_argument("--rtol", type=float, default=0.01, metavar="R", help="stop when upper - lower <= R * upper (default 0.01)")
+    p.add_argument("--max-seconds", type=float, default=120.0, metavar="T", help="time budget (default 120)")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+    p = sub.add_parser("bench", help="measure throughput on this machine and project a night's run",
+                       description="Measure variants per second of the analysis and of locus tracing beside a bare eigenvalue pass, and project how many variants fit in 1 and 8 hours.")
+    p.add_argument("config", nargs="?", metavar="CONFIG", help="config to measure (default: a built-in degree-6 loop)")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``sweep`` command."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not args.command:
+        parser.print_help()
+        return EXIT_BAD_INPUT
+    handler = _COMMANDS[args.command]
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            code = handler(args)
+        for w in caught:
+            if issubclass(w.category, Warning) and w.category.__module__.startswith("sweep"):
+                print(f"warning: {w.message}", file=sys.stderr)
+        return code
+    except InputError as exc:
+        if args.debug:
+            raise
+        print(f"sweep {args.command}: {exc.line()}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("\ninterrupted", file=sys.stderr)
+        return 130
+    except SweepError as exc:
+        if args.debug:
+            raise
+        print(f"sweep {args.command}: error: {exc}", file=sys.stderr)
+        return EXIT_FAILURE
+    except Exception as exc:  # a bug or an environment problem: one line unless --debug
+        if args.debug:
+            raise
+        print(f"sweep {args.command}: error: {type(exc).__name__}: {exc} (run with --debug for a traceback)", file=sys.stderr)
+        return EXIT_FAILURE
+
+
+# ---------------------------------------------------------------------------
+# Commands
+# ---------------------------------------------------------------------------
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    from . import report
+    from .config import load_config
+
+    config = load_config(args.config)
+    summary = report.check_summary(config)
+    if args.json:
+        from .jsonutil import dumps
+
+        print(dumps(summary))
+    else:
+        print(report.format_check(config, summary))
+    return EXIT_OK
+
+
+def _cmd_run(args: argparse.Namespace) -> int:
+    from .config import load_config
+
+    config = load_config(args.config)
+    from . import runner
+
+    if args.jobs is not None and args.jobs < 1:
+        raise InputError(f"-j must be at least 1, got {args.jobs}", field="-j")
+    try:
+        path = runner.run(config, out=args.out, jobs=args.jobs, resume=args.resume,
+                          scheduler=args.scheduler, quiet=args.quiet)
+    except runner.Interrupted as exc:
+        print(f"\n{exc}", file=sys.stderr)
+        return 130
+    print(path)
+    return EXIT_OK
+
+
+def _open_result(path: str):
+    from . import store
+
+    return store.open_result(path)
+
+
+def _cmd_query(args: argparse.Namespace) -> int:
+    from . import query
+
+    ds = _open_result(args.result)
+    summary = query.summarize(ds)
+    if args.json:
+        from .jsonutil import dumps
+
+        print(dumps(summary))
+    else:
+        print(query.format_summary(summary, ds))
+    return EXIT_OK
+
+
+def _cmd_plot(args: argparse.Namespace) -> int:
+    import os
+
+    from . import plots
+
+    ds = _open_result(args.result)
+    out = args.out or f"{os.path.splitext(args.result)[0]}-{args.what}.png"
+    ext = os.path.splitext(out)[1].lower()
+    if ext not in (".png", ".svg", ".pdf"):
+        raise InputError(f"unknown image format '{ext or out}'; use a .png, .svg or .pdf file name", field="-o")
+    if args.what == "plane" and not args.params:
+        raise InputError("--what plane needs the two parameters to draw: --params A B", field="--params")
+    path = plots.plot(ds, args.what, out, params=tuple(args.params) if args.params else None)
+    print(path)
+    return EXIT_OK
+
+
+def _cmd_certify(args: argparse.Namespace) -> int:
+    from . import certify as certify_mod
+    from .config import load_config
+
+    config = load_config(args.config)
+    if not (0 < args.rtol < 1):
+        raise InputError(f"--rtol must lie between 0 and 1, got {args.rtol:g}", field="--rtol")
+    bar = None
+    progress = None
+    if not args.quiet and not args.json:
+        from tqdm import tqdm
+
+        bar = tqdm(desc="boxes", unit="box", file=sys.stderr, leave=False)
+
+        def progress(boxes: int, lower: float, upper: float) -> None:
+            bar.n = boxes
+            bar.set_postfix_str(f"lower {lower:.6g}  upper {upper:.6g}", refresh=True)
+
+    try:
+        result = certify_mod.certify(config, rtol=args.rtol, max_seconds=args.max_seconds, progress=progress)
+    finally:
+        if bar is not None:
+            bar.close()
+    if args.json:
+        from .jsonutil import dumps
+
+        print(dumps(result))
+    else:
+        print(certify_mod.format_certificate(result) if hasattr(certify_mod, "format_certificate") else _format_plain(result))
+    return EXIT_OK
+
+
+def _cmd_bench(args: argparse.Namespace) -> int:
+    from . import bench
+
+    config = None
+    if args.config:
+        from .config import load_config
+
+        config = load_config(args.config)
+    result = bench.measure(config)
+    if args.json:
+        from .jsonutil import dumps
+
+        print(dumps(result))
+    else:
+        print(bench.format_result(result))
+    return EXIT_OK
+
+
+def _format_plain(result: dict[str, Any]) -> str:
+    lines = []
+    for key, value in result.items():
+        if isinstance(value, float) and math.isinf(value):
+            value = "inf"
+        elif isinstance(value, (np.floating, float)):
+            value = f"{value:.6g}"
+        lines.append(f"{key:>18}  {value}")
+    return "\n".join(lines)
+
+
+_COMMANDS = {
+    "check": _cmd_check,
+    "run": _cmd_run,
+    "query": _cmd_query,
+    "plot": _cmd_plot,
+    "certify": _cmd_certify,
+    "bench": _cmd_bench,
+}
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
