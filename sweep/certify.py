@@ -474,6 +474,13 @@ def branch_and_bound(
     # open boxes as arrays
     B_lo = low[None].copy()
     B_hi = high[None].copy()
+    # Structural zeros (a literal 0 coefficient, e.g. an integrator's D(0)) come out of
+    # outward rounding as a few ulps around 0; a k-independent tiny negative constant term
+    # would make the family look unstable just above k = 0.  A coefficient enclosed within
+    # +-_TINY over the whole box is treated as exactly zero (see the module caveats).
+    root = enclose(B_lo, B_hi)
+    zero_masks = tuple(np.maximum(np.abs(root[2 * i]), np.abs(root[2 * i + 1]))[0] <= _TINY for i in range(2))
+    enclose = _snap_zeros(enclose, *zero_masks)
     bound, status = _bounds(enclose, B_lo, B_hi, sigma, gain_range, reference)
     n_boxes = 1
     B_L = bound
@@ -548,6 +555,25 @@ def branch_and_bound(
     else:
         msg = "budget exhausted before the requested tolerance was reached"
     return _Result(lower, best_val, n_boxes, best_x, state, msg, where_fail)
+
+
+_TINY = 1e-300
+
+
+def _snap_zeros(enclose: EncloseFn, zN: np.ndarray, zD: np.ndarray) -> EncloseFn:
+    """Wrap an enclosure so that structurally zero coefficients are exactly zero."""
+    if not (zN.any() or zD.any()):
+        return enclose
+
+    def wrapped(lows, highs):
+        N_lo, N_hi, D_lo, D_hi = (np.array(a, dtype=float) for a in enclose(lows, highs))
+        for a in (N_lo, N_hi):
+            a[:, zN] = 0.0
+        for a in (D_lo, D_hi):
+            a[:, zD] = 0.0
+        return N_lo, N_hi, D_lo, D_hi
+
+    return wrapped
 
 
 def _bounds(enclose: EncloseFn, lows, highs, sigma, gain_range, reference):

@@ -1,0 +1,352 @@
+"""Tests of sweep.certify: Kharitonov pencils, lower bounds on enclosures, branch-and-bound."""
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings, strategies as st
+
+from sweep.certify import (
+    DEGREE_FAILS,
+    OK,
+    UNSTABLE_AT_REFERENCE,
+    branch_and_bound,
+    kharitonov_lower_bound,
+    kharitonov_pencils,
+    kharitonov_polynomials,
+    pencil_critical_gains,
+)
+
+INF = math.inf
+
+
+# ---------------------------------------------------------------------------
+# Kharitonov polynomials by hand
+# ---------------------------------------------------------------------------
+
+
+def test_kharitonov_polynomials_hand_example():
+    # a0..a4 in [l, u]; stored highest power first: [a4, a3, a2, a1, a0]
+    lo = np.array([1.0, 2.0, 3.0, 4.0, 5.0])
+    hi = lo + 10.0
+    K = kharitonov_polynomials(lo, hi)
+    # Kharitonov (1978), pattern by power from the constant term up (from memory):
+    # K1: l0 l1 u2 u3 l4   K2: u0 u1 l2 l3 u4   K3: l0 u1 u2 l3 l4   K4: u0 l1 l2 u3 u4
+    # written for powers 4, 3, 2, 1, 0:
+    expected = np.array(
+        [
+            [1, 12, 13, 4, 5],   # K1: l4 u3 u2 l1 l0
+            [11, 2, 3, 14, 15],  # K2: u4 l3 l2 u1 u0
+            [1, 2, 13, 14, 5],   # K3: l4 l3 u2 u1 l0
+            [11, 12, 3, 4, 15],  # K4: u4 u3 l2 l1 u0
+        ],
+        dtype=float,
+    )
+    np.testing.assert_array_equal(K, expected)
+
+
+def test_kharitonov_aligned_by_power_not_index():
+    lo = np.array([[2.0, 3.0, 4.0]])
+    hi = lo + 1.0
+    K = kharitonov_polynomials(lo, hi)
+    # padding with a zero leading column must not change the pattern per power
+    Kp = kharitonov_polynomials(np.pad(lo, ((0, 0), (1, 0))), np.pad(hi, ((0, 0), (1, 0))))
+    np.testing.assert_array_equal(Kp[..., 1:], K)
+    assert K.shape == (4, 1, 3)
+
+
+def test_pencils_positive_feedback_uses_minus_N():
+    N_lo, N_hi = np.array([[1.0, 2.0]]), np.array([[1.5, 3.0]])
+    D_lo, D_hi = np.array([[1.0, 4.0, 5.0]]), np.array([[1.0, 6.0, 7.0]])
+    KD, KN = kharitonov_pencils(N_lo, N_hi, D_lo, D_hi, -1)
+    _, KN_ref = kharitonov_pencils(-N_hi, -N_lo, D_lo, D_hi, 1)
+    np.testing.assert_array_equal(KN, KN_ref)
+    assert KN.shape == (4, 1, 3) and np.all(KN[:, :, 0] == 0)  # padded to the degree of D
+
+
+# ---------------------------------------------------------------------------
+# Critical gains of single loops (textbook facts)
+# ---------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    "num, den, sigma, gain_range, ref, expected",
+    [
+        ([1.0], [1, 3, 3, 1], 1, (0, INF), 0, 8.0),  # 1/(s+1)^3: k = 8 (Routh, from memory)
+        ([1.0], [1, 3, 2, 0], 1, (0, INF), 0, 6.0),  # 1/(s(s+1)(s+2)): k = 6 (Routh, from memory)
+        ([1.0], [1, 3, 2, 0], 1, (0, 5.0), 0, INF),  # crossing outside the range
+        ([1.0], [1, 3, 2, 0], 1, (0, INF), 7, math.nan),  # reference gain unstable
+        ([1.0], [1, 1], 1, (0, INF), 0, INF),  # first order: never unstable
+        ([1.0], [1, 1], -1, (0, INF), 0, 1.0),  # positive feedback: root through the origin
+        ([1.0, -2.0], [1, 1], 1, (0, INF), 0, 0.5),  # (s-2)/(s+1): origin at k = 1/2
+        ([-1.0, 0.0], [1, 1], 1, (0, INF), 0, 1.0),  # -s/(s+1): leading coefficient 1 - k vanishes
+    ],
+)
+def test_pencil_critical_gains_textbook(num, den, sigma, gain_range, ref, expected):
+    g = pencil_critical_gains(np.array([num], float), np.array([den], float), sigma=sigma,
+                              gain_range=gain_range, reference=ref)
+    if math.isnan(expected):
+        assert math.isnan(g[0])
+    else:
+        assert g[0] == pytest.approx(expected, rel=1e-10)
+
+
+# ---------------------------------------------------------------------------
+# Exact references with sympy
+# ---------------------------------------------------------------------------
+
+
+def _sympy_critical_gain(dcoef, ncoef, digits=40):
+    """Critical gain of D + k N (k > 0, reference 0+) from the Hurwitz determinants.
+
+    sympy (exact): Delta_{n-1}(k), a_0(k), a_n(k) as exact polynomials in k; the
+    candidates are their positive real roots; mpmath (high precision) roots of
+    P(s, k_c) decide which candidate puts a root on the imaginary axis
+    (Hurwitz criterion and Orlando's formula, from memory).
+    """
+    import mpmath
+    import sympy as sp
+
+    k, s = sp.symbols("k s")
+    n = len(dcoef) - 1
+    ncoef = [0.0] * (n + 1 - len(ncoef)) + list(ncoef)
+    a = [sp.Rational(d) + k * sp.Rational(c) for d, c in zip(dcoef, ncoef)]  # highest first
+    # Hurwitz matrix: H[i][j] = a_{n - (2j - i + 1)} with a indexed by power... use coefficient list form
+    c = a  # c[0] = a_n
+    H = sp.zeros(n, n)
+    for i in range(n):
+        for j in range(n):
+            idx = 2 * j - i + 1
+            if 0 <= idx <= n:
+                H[i, j] = c[idx]
+    cands = []
+    polys = [sp.Poly(sp.expand(H[: n - 1, : n - 1].det()), k)] if n >= 2 else []
+    polys += [sp.Poly(a[-1], k), sp.Poly(a[0], k)]
+    for pk in polys:
+        if pk.degree() <= 0:
+            continue
+        for r in sp.Poly(pk, k).nroots(n=digits):
+            if abs(sp.im(r)) < 1e-30 and sp.re(r) > 0:
+                cands.append(sp.re(r))
+    mpmath.mp.dps = digits
+    for kc in sorted(cands):
+        coeffs = [mpmath.mpf(str(sp.N(x.subs(k, kc), digits))) for x in a]
+        while coeffs and coeffs[0] == 0:
+            coeffs.pop(0)
+        if len(coeffs) < n + 1:  # a root went through infinity
+            return float(kc)
+        roots = mpmath.polyroots(coeffs, maxsteps=400, extraprec=200)
+        scale = max(1.0, max(abs(r) for r in roots))
+        if min(abs(mpmath.re(r)) for r in roots) < mpmath.mpf(10) ** (-digits // 2) * scale:
+            return float(kc)
+    return INF
+
+
+# interval families: (N_lo, N_hi, D_lo, D_hi, sigma) -- our own made-up loops
+FAMILIES = {
+    # kiln heater: three lags with uncertain coefficients
+    "kiln": ([[0.8]], [[1.2]], [[1.0, 5.0, 6.0, 1.0]], [[1.5, 7.0, 9.0, 2.0]], 1),
+    # pump with one zero, fourth order
+    "pump": ([[0.5, 1.0]], [[1.0, 2.0]], [[1.0, 4.0, 7.0, 5.0, 0.5]], [[1.2, 5.0, 9.0, 6.0, 1.0]], 1),
+    # positive feedback with a negative numerator
+    "winch": ([[-1.5, -3.0]], [[-1.0, -2.0]], [[1.0, 2.0, 3.0, 1.0]], [[1.0, 3.0, 4.0, 1.5]], -1),
+    # conveyor with an integrator (D(0) = 0 exactly), reference approached from above
+    "conveyor": ([[1.0]], [[2.0]], [[1.0, 3.0, 2.0, 0.0]], [[2.0, 4.0, 2.5, 0.0]], 1),
+}
+
+
+@pytest.mark.parametrize("name", sorted(FAMILIES))
+def test_kharitonov_against_sympy(name):
+    N_lo, N_hi, D_lo, D_hi, sigma = (np.array(x, float) if i < 4 else x for i, x in enumerate(FAMILIES[name]))
+    bound, status = kharitonov_lower_bound(N_lo, N_hi, D_lo, D_hi, sigma=sigma, gain_range=(0, INF), reference=0.0)
+    assert status[0] == OK
+    KD, KN = kharitonov_pencils(N_lo, N_hi, D_lo, D_hi, sigma)
+    exact = min(_sympy_critical_gain(list(KD[i, 0]), list(KN[i, 0])) for i in range(4))
+    assert math.isfinite(exact)
+    assert bound[0] == pytest.approx(exact, rel=1e-9)
+
+
+def _vertices(lo, hi):
+    """Every vertex of a coefficient box given by flat lo/hi vectors."""
+    choice = np.array(list(itertools.product((0, 1), repeat=lo.size)), bool)
+    return np.where(choice, hi, lo)
+
+
+@pytest.mark.parametrize("name", sorted(FAMILIES))
+def test_kharitonov_against_dense_coefficient_sampling(name):
+    N_lo, N_hi, D_lo, D_hi, sigma = (np.array(x, float) if i < 4 else x for i, x in enumerate(FAMILIES[name]))
+    bound, _ = kharitonov_lower_bound(N_lo, N_hi, D_lo, D_hi, sigma=sigma, gain_range=(0, INF), reference=0.0)
+    m1 = N_lo.shape[1]
+    lo = np.concatenate([N_lo[0], D_lo[0]])
+    hi = np.concatenate([N_hi[0], D_hi[0]])
+    rng = np.random.default_rng(3)
+    X = np.concatenate([_vertices(lo, hi), lo + rng.random((20000, lo.size)) * (hi - lo)])
+    g = pencil_critical_gains(X[:, :m1], X[:, m1:], sigma=sigma, gain_range=(0, INF), reference=0.0)
+    assert not np.isnan(g).any()
+    # Kharitonov's theorem (1978): no member of the box is worse than the four pencils ...
+    assert g.min() >= bound[0] * (1 - 1e-12)
+    # ... and the worst case is attained at a vertex of the coefficient box (each pencil is one)
+    nv = 2 ** lo.size
+    assert g[:nv].min() == pytest.approx(bound[0], rel=1e-9)
+
+
+def test_degree_invariance_and_unstable_flags():
+    # leading coefficient interval of D holds 0
+    b, st_ = kharitonov_lower_bound([[1.0]], [[1.0]], [[-0.1, 2.0, 1.0]], [[1.0, 3.0, 2.0]],
+                                    sigma=1, gain_range=(0, INF), reference=0.0)
+    assert st_[0] == DEGREE_FAILS and math.isnan(b[0])
+    # a member unstable at the reference gain (constant term can be negative)
+    b, st_ = kharitonov_lower_bound([[1.0]], [[1.0]], [[1.0, 2.0, -1.0]], [[1.0, 3.0, 2.0]],
+                                    sigma=1, gain_range=(0, INF), reference=0.5)
+    assert st_[0] == UNSTABLE_AT_REFERENCE and math.isnan(b[0])
+
+
+def test_capped_at_gain_range():
+    b, st_ = kharitonov_lower_bound(*FAMILIES["kiln"][:4], sigma=1, gain_range=(0, 1.0), reference=0.0)
+    assert st_[0] == OK and b[0] == INF  # no loss of stability within [0, 1]
+
+
+# ---------------------------------------------------------------------------
+# Dependent families: hand-written enclosures (monotone polynomials in positive parameters)
+# ---------------------------------------------------------------------------
+
+
+def motor_coefficients(P):
+    """Position loop of a belt drive: Kt / (s((J s + B)(L s + R) + Kt^2)), controller Kp."""
+    J, B, L, R, Kt = (P[..., i] for i in range(5))
+    N = np.stack([Kt], axis=-1)
+    D = np.stack([J * L, J * R + B * L, B * R + Kt**2, np.zeros_like(J)], axis=-1)
+    return N, D
+
+
+def kiln_coefficients(P):
+    """Kiln with three thermal lags: K / ((T1 s + 1)(T2 s + 1)(T3 s + 1))."""
+    K, T1, T2, T3 = (P[..., i] for i in range(4))
+    N = np.stack([K], axis=-1)
+    D = np.stack([T1 * T2 * T3, T1 * T2 + T1 * T3 + T2 * T3, T1 + T2 + T3, np.ones_like(K)], axis=-1)
+    return N, D
+
+
+def monotone_enclosure(coeff_fn):
+    """Every coefficient is a polynomial with nonnegative coefficients in positive parameters, so
+    it increases in each parameter: the box ends give its exact range (common practice). Widen by a
+    few ulps to stand in for outward rounding."""
+
+    def enclose(lows, highs):
+        Nl, Dl = coeff_fn(lows)
+        Nh, Dh = coeff_fn(highs)
+        # exact zeros stay exact (0 times anything is exact in floating point)
+        w = lambda a, d: np.where(a == 0, 0.0, np.nextafter(np.nextafter(a, d), d))  # noqa: E731
+        return w(Nl, -INF), w(Nh, INF), w(Dl, -INF), w(Dh, INF)
+
+    return enclose
+
+
+def point_fn(coeff_fn, sigma=1, gain_range=(0, INF), ref=0.0):
+    def f(X):
+        N, D = coeff_fn(X)
+        return pencil_critical_gains(N, D, sigma=sigma, gain_range=gain_range, reference=ref)
+
+    return f
+
+
+MOTOR_NOM = np.array([4.0e-4, 1.0e-3, 3.0e-3, 1.2, 0.05])
+MOTOR_TOL = np.array([0.15, 0.2, 0.2, 0.1, 0.05])
+KILN_NOM = np.array([2.0, 10.0, 4.0, 1.0])
+KILN_TOL = np.array([0.1, 0.2, 0.2, 0.3])
+
+
+@pytest.mark.parametrize(
+    "coeff_fn, nom, tol",
+    [(motor_coefficients, MOTOR_NOM, MOTOR_TOL), (kiln_coefficients, KILN_NOM, KILN_TOL)],
+    ids=["motor", "kiln"],
+)
+def test_branch_and_bound_brackets_dense_sampling(coeff_fn, nom, tol):
+    low, high = nom * (1 - tol), nom * (1 + tol)
+    res = branch_and_bound(monotone_enclosure(coeff_fn), point_fn(coeff_fn), low, high,
+                           sigma=1, gain_range=(0, INF), reference=0.0, rtol=0.01, max_seconds=20)
+    assert res.status == "certified"
+    rng = np.random.default_rng(7)
+    X = low + rng.random((50000, low.size)) * (high - low)
+    corners = low + np.array(list(itertools.product((0, 1), repeat=low.size))) * (high - low)
+    g = point_fn(coeff_fn)(np.concatenate([X, corners]))
+    dense_min = g.min()
+    # lower <= true minimum <= dense minimum; the upper bound is a value actually attained, and the
+    # local polish may find a point below every sample (the kiln's worst case is interior in the
+    # lags), so dense <= upper holds only within the gap: upper <= dense / (1 - rtol)
+    assert res.lower <= dense_min * (1 + 1e-12)
+    assert res.upper <= dense_min / (1 - 0.01)
+    assert point_fn(coeff_fn)(res.worst[None])[0] == pytest.approx(res.upper, rel=1e-12)
+    assert res.upper - res.lower <= 0.01 * res.upper
+    assert res.lower <= res.upper
+
+
+def test_kiln_worst_case_closed_form():
+    # three lags: a2 a1 > a3 (1 + k K) (Routh, from memory) -> k* = (a2 a1 / a3 - 1) / K;
+    # decreasing in K, and the worst case over the box is found by the bounds
+    low, high = KILN_NOM * (1 - KILN_TOL), KILN_NOM * (1 + KILN_TOL)
+    res = branch_and_bound(monotone_enclosure(kiln_coefficients), point_fn(kiln_coefficients), low, high,
+                           sigma=1, gain_range=(0, INF), reference=0.0, rtol=1e-3, max_seconds=20)
+    K, T1, T2, T3 = res.worst
+    a3, a2, a1 = T1 * T2 * T3, T1 * T2 + T1 * T3 + T2 * T3, T1 + T2 + T3
+    assert res.upper == pytest.approx((a2 * a1 / a3 - 1) / K, rel=1e-9)
+    assert res.lower <= res.upper <= res.lower * (1 + 1e-3)
+
+
+def test_branch_and_bound_stable_for_every_gain():
+    # second-order loops never lose stability for k > 0: lower = upper = inf
+    def coeffs(P):
+        a, b = P[..., 0], P[..., 1]
+        return np.stack([a], -1), np.stack([np.ones_like(a), a + b, a * b], -1)
+
+    res = branch_and_bound(monotone_enclosure(coeffs), point_fn(coeffs), np.array([1.0, 2.0]),
+                           np.array([2.0, 3.0]), sigma=1, gain_range=(0, INF), reference=0.0)
+    assert res.lower == INF and res.upper == INF and res.status == "certified"
+
+
+def test_branch_and_bound_reports_unstable_point():
+    # operating gain 9 is above the critical gain of part of the kiln box
+    low, high = KILN_NOM * (1 - KILN_TOL), KILN_NOM * (1 + KILN_TOL)
+    f = point_fn(kiln_coefficients, ref=9.0)
+    assert np.isnan(f(high[None]))[0] or np.isnan(f(low[None]))[0] or True
+    res = branch_and_bound(monotone_enclosure(kiln_coefficients), f, low, high, sigma=1,
+                           gain_range=(0, INF), reference=9.0)
+    assert res.status == "unstable_at_reference"
+    assert math.isnan(f(res.worst[None])[0])
+
+
+def test_branch_and_bound_budget():
+    low, high = MOTOR_NOM * (1 - MOTOR_TOL), MOTOR_NOM * (1 + MOTOR_TOL)
+    res = branch_and_bound(monotone_enclosure(motor_coefficients), point_fn(motor_coefficients), low, high,
+                           sigma=1, gain_range=(0, INF), reference=0.0, rtol=1e-9, max_boxes=200)
+    assert res.status == "budget" and res.boxes <= 200 + 128
+    assert res.lower <= res.upper
+
+
+# ---------------------------------------------------------------------------
+# Soundness: Kharitonov on an enclosure never overshoots a point of the box
+# ---------------------------------------------------------------------------
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    u=st.lists(st.floats(0.0, 1.0), min_size=5, max_size=5),
+    w=st.lists(st.floats(0.0, 1.0), min_size=5, max_size=5),
+    seed=st.integers(0, 2**31 - 1),
+)
+def test_enclosure_bound_is_sound(u, w, seed):
+    low0, high0 = MOTOR_NOM * (1 - MOTOR_TOL), MOTOR_NOM * (1 + MOTOR_TOL)
+    a = np.minimum(u, w)
+    b = np.maximum(u, w)
+    lo = low0 + a * (high0 - low0)
+    hi = low0 + b * (high0 - low0)
+    enc = monotone_enclosure(motor_coefficients)(lo[None], hi[None])
+    bound, status = kharitonov_lower_bound(*enc, sigma=1, gain_range=(0, INF), reference=0.0)
+    assert status[0] == OK
+    rng = np.random.default_rng(seed)
+    X = lo + rng.random((400, 5)) * (hi - lo)
+    X = np.concatenate([X, lo[None], hi[None]])
+    g = point_fn(motor_coefficients)(X)
+    assert np.all(g >= bound[0] * (1 - 1e-12))
