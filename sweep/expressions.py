@@ -485,19 +485,57 @@ _NUMPY_FUNCS = {"sqrt": np.sqrt, "exp": np.exp, "log": np.log, "sin": np.sin, "c
 _INTERVAL_FUNCS = {"sqrt": _iv.isqrt, "exp": _iv.iexp, "log": _iv.ilog, "sin": _iv.isin, "cos": _iv.icos, "tan": _iv.itan}
 
 
-def _power(base: Any, node: Power, env: Mapping[str, Any]) -> Any:
+def _power(base: Any, node: Power, env: Mapping[str, Any], imode: bool) -> Any:
     n = _literal_int(node.exponent)
     if isinstance(base, Interval):
         if n is not None:
             return base ** n
-        return base ** evaluate(node.exponent, env)
+        return base ** _eval(node.exponent, env, imode)
     if n is not None:
         # integer power: exact sign rules, negative bases fine
         return np.power(np.asarray(base, dtype=np.float64), float(n))[()]
-    e = evaluate(node.exponent, env)
+    e = _eval(node.exponent, env, imode)
     if isinstance(e, Interval):
         return Interval(base) ** e
     return np.power(np.asarray(base, dtype=np.float64), e)[()]
+
+
+def _eval(node: Node, env: Mapping[str, Any], imode: bool) -> Any:
+    if isinstance(node, Number):
+        # in interval mode constants are point intervals, so that every
+        # operation on them (exp(21), 0.1 + 0.2, ...) is rounded outward too
+        return Interval(node.value) if imode else float(node.value)
+    if isinstance(node, Name):
+        try:
+            return env[node.id]
+        except KeyError:
+            raise _err(f"no value for name '{node.id}'") from None
+    if isinstance(node, S):
+        raise _err("'s' cannot be evaluated as a number; use evaluate_rational")
+    if isinstance(node, Neg):
+        return -_eval(node.operand, env, imode)
+    if isinstance(node, Binary):
+        a = _eval(node.left, env, imode)
+        b = _eval(node.right, env, imode)
+        if node.op == "+":
+            return a + b
+        if node.op == "-":
+            return a - b
+        if node.op == "*":
+            return a * b
+        return a / b
+    if isinstance(node, Power):
+        return _power(_eval(node.base, env, imode), node, env, imode)
+    if isinstance(node, Call):
+        x = _eval(node.arg, env, imode)
+        if isinstance(x, Interval):
+            return _INTERVAL_FUNCS[node.func](x)
+        return _NUMPY_FUNCS[node.func](x)
+    raise TypeError(f"not an expression node: {node!r}")
+
+
+def _interval_mode(env: Mapping[str, Any]) -> bool:
+    return any(isinstance(v, Interval) for v in env.values())
 
 
 def evaluate(node: Node, env: Mapping[str, Any]) -> Any:
@@ -513,37 +551,11 @@ def evaluate(node: Node, env: Mapping[str, Any]) -> Any:
     Returns
     -------
     float, ndarray or Interval
-        The same kind as the inputs (an `Interval` as soon as one input is).
+        The same kind as the inputs. As soon as one value in `env` is an
+        `Interval`, every number in the tree is treated as a point interval
+        and the result is an `Interval` (sound enclosure).
     """
-    if isinstance(node, Number):
-        return float(node.value)
-    if isinstance(node, Name):
-        try:
-            return env[node.id]
-        except KeyError:
-            raise _err(f"no value for name '{node.id}'") from None
-    if isinstance(node, S):
-        raise _err("'s' cannot be evaluated as a number; use evaluate_rational")
-    if isinstance(node, Neg):
-        return -evaluate(node.operand, env)
-    if isinstance(node, Binary):
-        a = evaluate(node.left, env)
-        b = evaluate(node.right, env)
-        if node.op == "+":
-            return a + b
-        if node.op == "-":
-            return a - b
-        if node.op == "*":
-            return a * b
-        return a / b
-    if isinstance(node, Power):
-        return _power(evaluate(node.base, env), node, env)
-    if isinstance(node, Call):
-        x = evaluate(node.arg, env)
-        if isinstance(x, Interval):
-            return _INTERVAL_FUNCS[node.func](x)
-        return _NUMPY_FUNCS[node.func](x)
-    raise TypeError(f"not an expression node: {node!r}")
+    return _eval(node, env, _interval_mode(env))
 
 
 def evaluate_rational(node: Node, env: Mapping[str, Any]) -> Rational:

@@ -201,7 +201,7 @@ class Interval:
     def reciprocal(self) -> "Interval":
         """``1 / self``; unbounded ``[-inf, inf]`` where the interval holds 0."""
         has_zero = (self.lo <= 0.0) & (self.hi >= 0.0)
-        with np.errstate(divide="ignore", invalid="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             lo = _down(1.0 / self.hi)
             hi = _up(1.0 / self.lo)
         lo = np.where(has_zero, -_INF, lo)
