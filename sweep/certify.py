@@ -655,23 +655,16 @@ def is_interval_family(config: Any) -> bool:
 
 
 def _occurrences(node: Any, name: str) -> int:
-    """How many times the variable `name` occurs in an expression tree (generic dataclass walk)."""
+    """How many times the variable `name` occurs in an expression tree."""
     import dataclasses
 
-    if isinstance(node, (list, tuple)):
-        return sum(_occurrences(x, name) for x in node)
+    from sweep import expressions as ex
+
+    if isinstance(node, ex.Name):
+        return int(node.id == name)
     if not dataclasses.is_dataclass(node):
         return 0
-    count = 0
-    fields = dataclasses.fields(node)
-    # a leaf naming a variable: a node whose only string field equals `name` and has no child nodes
-    strs = [getattr(node, f.name) for f in fields if isinstance(getattr(node, f.name), str)]
-    kids = [getattr(node, f.name) for f in fields if not isinstance(getattr(node, f.name), str)]
-    if name in strs and not any(dataclasses.is_dataclass(k) or isinstance(k, (list, tuple)) for k in kids):
-        return 1
-    for k in kids:
-        count += _occurrences(k, name)
-    return count
+    return sum(_occurrences(getattr(node, f.name), name) for f in dataclasses.fields(node))
 
 
 def _reference_gain(config: Any) -> float:

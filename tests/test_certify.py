@@ -350,3 +350,187 @@ def test_enclosure_bound_is_sound(u, w, seed):
     X = np.concatenate([X, lo[None], hi[None]])
     g = point_fn(motor_coefficients)(X)
     assert np.all(g >= bound[0] * (1 - 1e-12))
+
+
+# ---------------------------------------------------------------------------
+# Config front (TOML -> Config -> certify), with the project's loop and interval arithmetic
+# ---------------------------------------------------------------------------
+
+from sweep import analysis, loop  # noqa: E402
+from sweep.certify import certify, is_interval_family  # noqa: E402
+from sweep.config import parse_config  # noqa: E402
+from sweep.errors import InputError  # noqa: E402
+
+
+def _config(params: dict, plant: str, loop_extra: str = "") -> object:
+    lines = ["title = 'test loop'", "[parameters]"]
+    lines += [f"{k} = {v}" for k, v in params.items()]
+    lines += ["[plant]", plant, "[loop]", loop_extra]
+    return parse_config("\n".join(lines), source="test.toml")
+
+
+# A mixing-tank level loop given as an interval model: one parameter per coefficient.
+TANK_PARAMS = {
+    "a4": "{ nominal = 1.0, tol = '5%' }",
+    "a3": "{ nominal = 5.0, tol = '10%' }",
+    "a2": "{ nominal = 9.0, tol = '10%' }",
+    "a1": "{ nominal = 7.0, tol = '15%' }",
+    "a0": "{ nominal = 2.0, tol = '20%' }",
+    "b1": "{ nominal = 0.5, tol = '10%' }",
+    "b0": "{ nominal = 1.5, tol = '10%' }",
+}
+TANK_PLANT = "num = ['b1', 'b0']\nden = ['a4', 'a3', 'a2', 'a1', 'a0']"
+
+
+def _corner_values(config):
+    unc = config.uncertain
+    corners = np.array(list(itertools.product((0, 1), repeat=len(unc))), bool)
+    vals = {p.name: np.full(len(corners), p.nominal) for p in config.parameters}
+    for i, p in enumerate(unc):
+        vals[p.name] = np.where(corners[:, i], p.high, p.low)
+    return vals
+
+
+def _sweep_gains(config, vals):
+    N, D = loop.assemble(config, vals)
+    out = analysis.analyze_stack(N, D, sigma=config.sigma, gain_range=config.gain_range,
+                                 operating_gain=config.operating_gain)
+    return out["critical_gain"]
+
+
+@pytest.mark.parametrize("loop_extra", ["", "feedback = 'negative'\noperating_gain = 1.0",
+                                        "controller = '2.5'\nsensor = '0.5'"])
+def test_interval_family_exact_equals_corner_sweep(loop_extra):
+    cfg = _config(TANK_PARAMS, TANK_PLANT, loop_extra)
+    assert is_interval_family(cfg)
+    res = certify(cfg)
+    assert res["method"] == "kharitonov" and res["exact"] is True and res["status"] == "exact"
+    assert res["lower"] == res["upper"] and res["relative_gap"] == 0.0
+    # every corner of the parameter box is a vertex of the coefficient box; the Kharitonov
+    # pencils are among them, so the corner sweep's worst case equals the certified value
+    # (Kharitonov 1978)
+    g = _sweep_gains(cfg, _corner_values(cfg))
+    assert np.nanmin(g) == pytest.approx(res["lower"], rel=1e-9)
+    worst = {p.name: np.array([res["worst_parameters"].get(p.name, p.nominal)]) for p in cfg.parameters}
+    assert _sweep_gains(cfg, worst)[0] == pytest.approx(res["lower"], rel=1e-9)
+
+
+def test_interval_family_matches_branch_and_bound():
+    # the same family through the general route must bracket the exact value
+    cfg = _config(TANK_PARAMS, TANK_PLANT)
+    exact = certify(cfg)["lower"]
+    from sweep.certify import _config_functions, _reference_gain
+
+    names, enclose, point_gains, _ = _config_functions(cfg)
+    low = np.array([p.low for p in cfg.uncertain])
+    high = np.array([p.high for p in cfg.uncertain])
+    res = branch_and_bound(enclose, point_gains, low, high, sigma=1, gain_range=cfg.gain_range,
+                           reference=_reference_gain(cfg), rtol=1e-6)
+    assert res.lower <= exact * (1 + 1e-12) and res.upper >= exact * (1 - 1e-12)
+    assert res.lower == pytest.approx(exact, rel=1e-9)  # one box already gives the exact value
+
+
+@pytest.mark.parametrize(
+    "params, plant, loop_extra",
+    [
+        (TANK_PARAMS, "transfer = '(b1*s + b0)/(a4*s^4 + a3*s^3 + a2*s^2 + a1*s + a0)'", ""),
+        (TANK_PARAMS, "num = ['b1', 'b0']\nden = ['a4', 'a3', 'a2*a1', 'a1', 'a0']", ""),  # shared
+        (TANK_PARAMS, "num = ['b1', 'b0']\nden = ['a4', 'a3', 'a2*a2', 'a1', 'a0']", ""),  # used twice
+        (TANK_PARAMS, "num = ['b1', 'b0']\nden = ['a4', 'a3 + a2', '9', 'a1', 'a0']", ""),  # two in one
+        (TANK_PARAMS, TANK_PLANT, "controller = '(s + 4)/(s + 20)'"),  # dynamic controller mixes
+        (TANK_PARAMS, TANK_PLANT, "sensor = 'b0'"),  # uncertain sensor
+    ],
+)
+def test_not_interval_family(params, plant, loop_extra):
+    cfg = _config(params, plant, loop_extra)
+    assert not is_interval_family(cfg)
+    assert certify(cfg, max_seconds=10)["method"] == "branch-and-bound"
+
+
+MOTOR_TOML = {
+    "J": "{ nominal = 4.0e-4, tol = '15%' }",
+    "B": "{ nominal = 1.0e-3, tol = '20%' }",
+    "L": "{ nominal = 3.0e-3, tol = '20%' }",
+    "R": "{ nominal = 1.2, tol = '10%' }",
+    "Kt": "{ nominal = 0.05, tol = '5%' }",
+}
+KILN_TOML = {
+    "K": "{ nominal = 2.0, tol = '10%' }",
+    "T1": "{ nominal = 10.0, tol = '20%' }",
+    "T2": "{ nominal = 4.0, tol = '20%' }",
+    "T3": "{ nominal = 1.0, tol = '30%' }",
+}
+
+
+@pytest.mark.parametrize(
+    "params, plant",
+    [
+        (MOTOR_TOML, "transfer = 'Kt / (s*((J*s + B)*(L*s + R) + Kt^2))'"),
+        (KILN_TOML, "transfer = 'K / ((T1*s + 1)*(T2*s + 1)*(T3*s + 1))'"),
+    ],
+    ids=["motor", "kiln"],
+)
+def test_certify_config_brackets_dense_sampling(params, plant):
+    cfg = _config(params, plant)
+    calls = []
+    res = certify(cfg, rtol=0.01, max_seconds=30, progress=lambda b, lo, up: calls.append((b, lo, up)))
+    assert res["method"] == "branch-and-bound" and res["exact"] is False
+    assert res["status"] == "certified" and res["relative_gap"] <= 0.01
+    assert calls and calls[-1][0] == res["boxes"]
+    unc = cfg.uncertain
+    rng = np.random.default_rng(11)
+    V = 20000
+    vals = {p.name: p.low + rng.random(V) * (p.high - p.low) for p in unc}
+    dense = np.nanmin(_sweep_gains(cfg, vals))
+    dense = min(dense, np.nanmin(_sweep_gains(cfg, _corner_values(cfg))))
+    assert res["lower"] <= dense * (1 + 1e-12)
+    assert res["upper"] <= dense / (1 - 0.01)
+    worst = {p.name: np.array([res["worst_parameters"][p.name]]) for p in unc}
+    assert _sweep_gains(cfg, worst)[0] == pytest.approx(res["upper"], rel=1e-9)
+
+
+def test_certify_unstable_at_reference():
+    cfg = _config(KILN_TOML, "transfer = 'K / ((T1*s + 1)*(T2*s + 1)*(T3*s + 1))'", "operating_gain = 9")
+    res = certify(cfg)
+    assert res["status"] == "unstable_at_reference"
+    assert math.isnan(res["lower"]) and math.isnan(res["upper"])
+    worst = {p.name: np.array([res["worst_parameters"][p.name]]) for p in cfg.uncertain}
+    assert math.isnan(_sweep_gains(cfg, worst)[0])
+
+
+def test_certify_interval_family_unstable_corner():
+    params = dict(TANK_PARAMS)
+    cfg = _config(params, TANK_PLANT, "operating_gain = 60")
+    res = certify(cfg)
+    assert res["method"] == "kharitonov" and res["status"] == "unstable_at_reference"
+    worst = {p.name: np.array([res["worst_parameters"].get(p.name, p.nominal)]) for p in cfg.parameters}
+    assert math.isnan(_sweep_gains(cfg, worst)[0])
+
+
+def test_certify_stable_for_every_gain_and_capped_range():
+    cfg = _config({"a": "{ nominal = 2.0, tol = '10%' }", "b": "{ nominal = 3.0, tol = '10%' }"},
+                  "transfer = 'a / ((s + a)*(s + b))'")
+    res = certify(cfg)
+    assert res["lower"] == INF and res["upper"] == INF and res["status"] == "certified"
+    cfg = _config(KILN_TOML, "transfer = 'K / ((T1*s + 1)*(T2*s + 1)*(T3*s + 1))'", "gain_range = [0, 1]")
+    res = certify(cfg)
+    assert res["lower"] == INF and res["upper"] == INF  # no loss of stability within [0, 1]
+
+
+def test_certify_rejects_bad_rtol():
+    cfg = _config(KILN_TOML, "transfer = 'K / ((T1*s + 1)*(T2*s + 1)*(T3*s + 1))'")
+    with pytest.raises(InputError):
+        certify(cfg, rtol=0.0)
+
+
+def test_lean_critical_gains_agree_with_analysis():
+    # the lean routine used on the hot path must give analysis.analyze_stack's critical gain
+    cfg = _config(MOTOR_TOML, "transfer = 'Kt / (s*((J*s + B)*(L*s + R) + Kt^2))'",
+                  "controller = '(s + 20)/(s + 200)'\nsensor = '1/(0.001*s + 1)'\noperating_gain = 500")
+    rng = np.random.default_rng(5)
+    V = 2000
+    vals = {p.name: p.low + rng.random(V) * (p.high - p.low) for p in cfg.uncertain}
+    N, D = loop.assemble(cfg, vals)
+    a = analysis.analyze_stack(N, D, sigma=1, gain_range=cfg.gain_range, operating_gain=500.0)["critical_gain"]
+    g = pencil_critical_gains(N, D, sigma=1, gain_range=cfg.gain_range, reference=500.0)
+    np.testing.assert_allclose(g, a, rtol=1e-9)
