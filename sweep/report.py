@@ -46,7 +46,7 @@ def _variant_count(config: Config) -> int | None:
     from . import designs
 
     try:
-        return int(designs.count(config)) if hasattr(designs, "count") else int(designs.generate(config).count)
+        return sum(int(designs.design_count(config, name)) for name in config.sweep.designs)
     except Exception:  # noqa: BLE001 - the count is informative only; run reports the real error
         return None
 
