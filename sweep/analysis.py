@@ -455,7 +455,9 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
     ref = lo if k_op is None else k_op
     below = valid & (bg < ref)
     j = below.sum(axis=1)
-    on_boundary = np.any(valid & (bg == ref), axis=1) if k_op is not None else np.zeros(V, bool)
+    # an operating gain within rounding of a boundary gain sits on the axis: marginal
+    on_boundary = (np.any(valid & (np.abs(bg - ref) <= 1e-10 * abs(ref)), axis=1)
+                   if k_op is not None else np.zeros(V, bool))
     stable_ref = np.take_along_axis(stable_iv, j[:, None], 1)[:, 0] & ~on_boundary
     if k_op is None and not math.isfinite(lo):
         pass  # -inf lower end: reference is the first interval, as above

@@ -1,0 +1,83 @@
+"""Full per-variant analysis versus one batched eigenvalue pass, side by side.
+
+A degree-6 loop (a kiln temperature loop with a lead compensator, our own
+scenario) is perturbed into V variants. We time
+
+* ``eig``: one ``numpy.linalg.eigvals`` pass over the closed-loop companion
+  matrices of the same variants at the operating gain, and
+* ``analysis``: `sweep.analysis.analyze_stack` (boundary gains, intervals,
+  sketch quantities, margins),
+
+and print the ratio analysis / eig. Target: at most 2.
+
+Run: ``/work/venv/bin/python benchmarks/bench_analysis.py [V] [--profile]``
+"""
+from __future__ import annotations
+
+import sys
+import time
+
+import numpy as np
+
+from sweep.analysis import analyze_stack
+
+
+def make_stack(V: int, seed: int = 0):
+    rng = np.random.default_rng(seed)
+    # poles of a kiln: slow thermal mass, heater lag, sensor lag, a lightly damped pair
+    scale = rng.uniform(0.8, 1.2, size=(V, 6))
+    p = np.array([0.05, 0.4, 2.0, 5.0]) * scale[:, :4]
+    wn = 3.0 * scale[:, 4]
+    zeta = 0.3 * scale[:, 5]
+    D = np.ones((V, 1))
+    for i in range(4):
+        D = np.concatenate([D, np.zeros((V, 1))], 1) + np.concatenate([np.zeros((V, 1)), D * p[:, i:i + 1]], 1)
+    quad = np.stack([np.ones(V), 2 * zeta * wn, wn ** 2], 1)
+    Dq = np.zeros((V, 7))
+    for j in range(3):
+        Dq[:, j:j + 5] += D * quad[:, j:j + 1]
+    z = np.array([0.3, 1.0]) * rng.uniform(0.9, 1.1, size=(V, 2))
+    N = np.stack([np.ones(V), z[:, 0] + z[:, 1], z[:, 0] * z[:, 1]], 1)
+    return N, Dq
+
+
+def eig_pass(N, D, k0):
+    n = D.shape[1] - 1
+    P = D.copy()
+    P[:, n - N.shape[1] + 1:] += k0 * N
+    M = np.zeros((D.shape[0], n, n))
+    M[:, 0, :] = -P[:, 1:] / P[:, :1]
+    M[:, np.arange(1, n), np.arange(n - 1)] = 1.0
+    return np.linalg.eigvals(M)
+
+
+def main() -> None:
+    args = [a for a in sys.argv[1:] if not a.startswith("--")]
+    V = int(args[0]) if args else 100_000
+    N, D = make_stack(V)
+    k0 = 0.5
+    # warm-up on a small stack
+    analyze_stack(N[:100], D[:100], sigma=1, operating_gain=k0)
+    eig_pass(N[:100], D[:100], k0)
+    t = time.perf_counter()
+    eig_pass(N, D, k0)
+    t_eig = time.perf_counter() - t
+    if "--profile" in sys.argv:
+        import cProfile
+        import pstats
+        cProfile.runctx("analyze_stack(N, D, sigma=1, operating_gain=k0)", globals(), locals(), "/tmp/ba.prof")
+        pstats.Stats("/tmp/ba.prof").sort_stats("tottime").print_stats(15)
+    t = time.perf_counter()
+    res = analyze_stack(N, D, sigma=1, operating_gain=k0)
+    t_an = time.perf_counter() - t
+    print(f"variants: {V}, degree {D.shape[1] - 1}/{N.shape[1] - 1}")
+    print(f"one eigvals pass:  {t_eig:.3f} s")
+    print(f"full analysis:     {t_an:.3f} s")
+    print(f"ratio analysis/eig: {t_an / t_eig:.2f}  (target <= 2)")
+    print(f"stable at operating gain: {int(res['stable_at_reference'].sum())}/{V}, "
+          f"ill-conditioned: {int(res['ill_conditioned'].sum())}, "
+          f"Routh disagreements: {int((res['routh_agrees'] == 0).sum())}")
+
+
+if __name__ == "__main__":
+    main()

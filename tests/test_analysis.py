@@ -1,0 +1,484 @@
+"""Tests of the stacked loop analysis (sweep.analysis)."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import sympy as sp
+from hypothesis import HealthCheck, given, settings, strategies as st
+
+from sweep.analysis import (
+    VARIABLE_ATTRS,
+    VARIABLE_DIMS,
+    LoopAnalysis,
+    analyze,
+    analyze_stack,
+    boundary_width,
+    breakaway_width,
+)
+from sweep.errors import InputError
+from sweep.routh import hurwitz_boundary_gains
+
+INF = math.inf
+_s, _k = sp.symbols("s k")
+
+
+# ---------------------------------------------------------------------------
+# independent reference: exact Hurwitz determinants in k (sympy)
+
+def _hurwitz_sym(coeffs):
+    n = len(coeffs) - 1
+    return sp.Matrix(n, n, lambda i, j: coeffs[2 * j + 1 - i] if 0 <= 2 * j + 1 - i <= n else 0)
+
+
+def _stable_exact(poly_coeffs):
+    """Exact Hurwitz test of a polynomial with rational coefficients."""
+    c = list(poly_coeffs)
+    while c and c[0] == 0:
+        c = c[1:]
+    if c[0] < 0:
+        c = [-x for x in c]
+    n = len(c) - 1
+    if any(x <= 0 for x in c):
+        return False
+    H = _hurwitz_sym(c)
+    return all(H[: i + 1, : i + 1].det() > 0 for i in range(n))
+
+
+def sympy_reference(num, den, sigma=1, lo=0, hi=None):
+    """Boundary gains, frequencies and stable intervals, exactly.
+
+    reference: sympy exact Hurwitz determinant (Delta_(n-1) of P(s, k) as a
+    polynomial in k), plus a_0(k) = 0 and a_n(k) = 0; frequencies from the
+    roots of P at the exact boundary gain to 40 digits.
+    """
+    N = sp.Poly([sp.Rational(x) for x in num], _s)
+    D = sp.Poly([sp.Rational(x) for x in den], _s)
+    P = D + sigma * _k * N
+    n = D.degree()
+    coeffs = [P.as_expr().expand().coeff(_s, i) for i in range(n, -1, -1)]
+    lo = sp.Rational(lo)
+    inside = (lambda x: x > lo) if hi is None else (lambda x: lo < x < sp.Rational(hi))
+    found = []
+    # a_0(k) = 0: root through the origin
+    for r in sp.real_roots(sp.Poly(coeffs[-1], _k)) if sp.Poly(coeffs[-1], _k).degree() > 0 else []:
+        if inside(r):
+            found.append((r, 0.0))
+    # a_n(k) = 0: root through infinity
+    if sp.Poly(coeffs[0], _k).degree() > 0:
+        for r in sp.real_roots(sp.Poly(coeffs[0], _k)):
+            if inside(r):
+                found.append((r, INF))
+    if n >= 2:
+        H = _hurwitz_sym(coeffs)
+        delta = sp.Poly(sp.expand(H[: n - 1, : n - 1].det()), _k)
+        assert not delta.is_zero
+        for r in sp.real_roots(delta) if delta.degree() > 0 else []:
+            if not inside(r):
+                continue
+            Pr = sp.Poly([sp.nsimplify(c.subs(_k, r)) for c in coeffs], _s)
+            roots = sp.Poly(sp.N(Pr.as_expr(), 60), _s).nroots(n=40, maxsteps=200)
+            axis = [abs(sp.im(z)) for z in roots if abs(sp.re(z)) < 1e-25 and sp.im(z) > 0]
+            if axis:  # a pair +-jw, not a real pair +-a
+                found.append((r, float(max(axis))))
+    found.sort(key=lambda t: float(t[0]))
+    gains = [t[0] for t in found]
+    # stable intervals: exact Hurwitz test at a rational point of each interval
+    edges = [lo] + gains + ([None] if hi is None else [sp.Rational(hi)])
+    intervals = []
+    for a, b in zip(edges[:-1], edges[1:]):
+        if b is not None and not float(b) > float(a):
+            continue
+        if b is None:
+            t = sp.nsimplify(float(a) * 2 + 1)
+        else:
+            t = sp.nsimplify((float(a) + float(b)) / 2)
+        if _stable_exact([c.subs(_k, t) for c in coeffs]):
+            intervals.append((float(a), INF if b is None else float(b)))
+    return [float(g) for g in gains], [t[1] for t in found], intervals
+
+
+def _close(a, b, rtol=1e-9):
+    if math.isinf(a) or math.isinf(b):
+        return a == b
+    return abs(a - b) <= rtol * max(abs(a), abs(b), 1e-300) or abs(a - b) < 1e-12
+
+
+# Loops of our own scenarios: (name, num, den, feedback, gain_range, operating_gain)
+LOOPS = [
+    ("conveyor type-1 third order", [1], [1, 3, 2, 0], "negative", (0, INF), None),
+    ("winch type-1 third order", [1], [1, 6, 8, 0], "negative", (0, INF), None),
+    ("pump, stable for all gains", [1, 3], [1, 2, 5], "negative", (0, INF), None),
+    ("mixer, conditionally stable", [1, 2, 5], [1, 11, 38, 55, 45, 18], "negative", (0, INF), None),
+    ("dryer, conditionally stable", [1, 1, 5], [1, 9, 24, 44, 48, 0], "negative", (0, INF), None),
+    ("kiln, conditionally stable", [1, 1, 4], [1, 7, 19, 29, 28, 12], "negative", (0, INF), None),
+    ("balancer, unstable at the reference", [1, 1], [1, 3, 12, -16, 0], "negative", (0, INF), None),
+    ("crane, positive feedback", [1], [1, 6, 11, 6], "positive", (0, INF), None),
+    ("valve, root through the origin", [1, -1], [1, 3, 2], "negative", (0, INF), None),
+    ("fan, root through infinity", [-1, 1, 1], [1, 3, 2], "negative", (0, INF), None),
+    ("press, nonzero lower gain", [1], [1, 3, 2, 0], "negative", (1, INF), None),
+    ("lift, finite range", [1], [1, 6, 8, 0], "negative", (0, 20), None),
+    ("extruder, operating gain", [1], [1, 6, 8, 0], "negative", (0, INF), 10.0),
+    ("tank chain of six lags", [1], [1, 6, 15, 20, 15, 6, 1], "negative", (0, INF), 1.0),
+    ("spindle with resonance", [2, 3], [1, 4, 12, 16, 8, 0], "negative", (0, INF), None),
+    ("oven, positive feedback with zero", [1, 4], [1, 5, 9, 7, 2], "positive", (0, INF), None),
+    ("chiller, resonant pair and zeros", [1, 0.5, 4], [1, 3, 6, 8, 2, 0], "negative", (0.5, INF), 2.0),
+    ("hoist, deg N = deg D, negative range", [1, -2, 1], [1, 4, 5, 2], "negative", (-0.5, INF), None),
+]
+
+
+@pytest.mark.parametrize("name,num,den,fb,gr,k0", LOOPS, ids=[l[0] for l in LOOPS])
+def test_against_sympy_exact(name, num, den, fb, gr, k0):
+    sigma = 1 if fb == "negative" else -1
+    # reference: sympy exact Hurwitz determinant
+    g_ref, w_ref, iv_ref = sympy_reference(num, den, sigma, gr[0], None if math.isinf(gr[1]) else gr[1])
+    a = analyze(num, den, feedback=fb, gain_range=gr, operating_gain=k0)
+    assert not a.ill_conditioned and a.routh_agrees and not a.fixed_axis_root
+    assert len(a.boundary_gains) == len(g_ref), (a.boundary_gains, g_ref)
+    for x, y in zip(a.boundary_gains, g_ref):
+        assert _close(x, y), (x, y)
+    for x, y in zip(a.boundary_frequencies, w_ref):
+        assert _close(x, y, 1e-8), (x, y)
+    assert len(a.stable_intervals) == len(iv_ref), (a.stable_intervals, iv_ref)
+    for (x0, x1), (y0, y1) in zip(a.stable_intervals, iv_ref):
+        assert _close(x0, y0) and _close(x1, y1)
+    # critical gain from the exact intervals
+    ref = gr[0] if k0 is None else k0
+    holding = [iv for iv in iv_ref if (iv[0] < ref < iv[1]) or (k0 is None and iv[0] == ref)]
+    if holding:
+        # no boundary above inside the range means inf (DESIGN convention)
+        expect = INF if holding[0][1] == gr[1] else holding[0][1]
+        assert _close(a.critical_gain, expect)
+        assert _close(a.critical_gain_low, holding[0][0])
+    else:
+        assert math.isnan(a.critical_gain) and math.isnan(a.critical_gain_low)
+        assert math.isnan(a.crossing_frequency)
+    # the Hurwitz route of sweep.routh agrees too
+    g_h, w_h = hurwitz_boundary_gains(num, den, sigma=sigma, gain_range=gr)
+    np.testing.assert_allclose(sorted(g_h), g_ref, rtol=1e-7)
+
+
+def test_case_coverage():
+    a = {l[0]: analyze(l[1], l[2], feedback=l[3], gain_range=l[4], operating_gain=l[5]) for l in LOOPS}
+    assert len(a["mixer, conditionally stable"].stable_intervals) == 2
+    assert a["pump, stable for all gains"].critical_gain == INF
+    assert math.isnan(a["pump, stable for all gains"].crossing_frequency)
+    assert math.isnan(a["balancer, unstable at the reference"].critical_gain)
+    assert a["crane, positive feedback"].crossing_frequency == 0.0
+    assert a["valve, root through the origin"].crossing_frequency == 0.0
+    assert a["fan, root through infinity"].crossing_frequency == INF
+    assert a["press, nonzero lower gain"].critical_gain_low == 1.0
+    assert a["lift, finite range"].critical_gain == INF  # 48 lies outside (0, 20)
+
+
+def test_fixed_axis_root_is_reported():
+    # N and D share s^2 + 4: a root at +-2j for every gain
+    num = [1, 0, 4]
+    den = np.polymul([1, 0, 4], [1, 3, 2, 0])
+    a = analyze(num, den)
+    assert a.fixed_axis_root
+    assert a.stable_intervals == []
+    assert math.isnan(a.critical_gain)
+    # the other boundary gains are those of the reduced loop 1/(s(s+1)(s+2));
+    # reference: sympy exact Hurwitz determinant
+    g_ref, w_ref, _ = sympy_reference([1], [1, 3, 2, 0])
+    np.testing.assert_allclose(a.boundary_gains, g_ref, rtol=1e-9)
+    np.testing.assert_allclose(a.boundary_frequencies, w_ref, rtol=1e-9)
+
+
+def test_fixed_root_at_origin():
+    a = analyze([1, 1, 0], [1, 3, 2, 0])
+    assert a.fixed_axis_root and math.isnan(a.critical_gain)
+
+
+# ---------------------------------------------------------------------------
+# textbook facts
+
+def test_textbook_third_order_critical_gain():
+    # 1/(s(s+1)(s+2)): critical gain 6 at sqrt(2) rad/s (from memory)
+    a = analyze([1], [1, 3, 2, 0])
+    assert a.critical_gain == pytest.approx(6.0, rel=1e-12)
+    assert a.crossing_frequency == pytest.approx(math.sqrt(2), rel=1e-12)
+
+
+def test_textbook_second_example():
+    # 1/(s(s+2)(s+4)): K = 48 at sqrt(8) rad/s (from memory)
+    a = analyze([1], [1, 6, 8, 0])
+    assert a.critical_gain == pytest.approx(48.0, rel=1e-12)
+    assert a.crossing_frequency == pytest.approx(math.sqrt(8), rel=1e-12)
+
+
+def test_textbook_breakaway():
+    # 1/(s(s+1)(s+2)): breakaway at -1 + 1/sqrt(3) with k = 2/(3 sqrt 3) (from memory)
+    a = analyze([1], [1, 3, 2, 0])
+    assert len(a.breakaway_points) == 1
+    s, k = a.breakaway_points[0]
+    assert s == pytest.approx(-1 + 1 / math.sqrt(3), rel=1e-12)
+    assert k == pytest.approx(2 / (3 * math.sqrt(3)), rel=1e-12)
+
+
+def test_textbook_asymptotes():
+    # 1/(s(s+1)(s+2)): centroid -1, angles +-60 and 180 degrees (from memory)
+    a = analyze([1], [1, 3, 2, 0])
+    assert a.asymptotes["centroid"] == pytest.approx(-1.0)
+    assert a.asymptotes["angles_deg"] == pytest.approx([-60.0, 60.0, 180.0])
+    # positive feedback flips to 0, +-120 (0 degree locus, from memory)
+    b = analyze([1], [1, 3, 2, 0], feedback="positive")
+    assert b.asymptotes["angles_deg"] == pytest.approx([-120.0, 0.0, 120.0])
+    # a negative leading ratio flips it too
+    c = analyze([-1], [1, 3, 2, 0], feedback="positive")
+    assert c.asymptotes["angles_deg"] == pytest.approx([-60.0, 60.0, 180.0])
+
+
+def test_textbook_departure_angle():
+    # (s+2)/(s^2+2s+2): poles -1 +- j; departure 180 + 45 - 90 = 135 deg
+    # at -1 + j (angle-sum formula, from memory); break-in at -2 - sqrt 2
+    a = analyze([1, 2], [1, 2, 2])
+    dep = dict((round(p.imag), ang) for p, ang in a.departure_angles_deg)
+    assert dep[1] == pytest.approx(135.0)
+    assert dep[-1] == pytest.approx(-135.0)
+    assert a.breakaway_points[0][0] == pytest.approx(-2 - math.sqrt(2))
+
+
+def _angle_sum_departure(p, poles, zeros, locus180=True):
+    th = (180.0 if locus180 else 0.0) + sum(np.degrees(np.angle(p - z)) for z in zeros) \
+        - sum(np.degrees(np.angle(p - q)) for q in poles if abs(q - p) > 1e-9)
+    return (th + 180.0) % 360.0 - 180.0 if (th + 180.0) % 360.0 != 0 else 180.0
+
+
+def _angle_sum_arrival(z, poles, zeros, locus180=True):
+    th = (180.0 if locus180 else 0.0) - sum(np.degrees(np.angle(z - q)) for q in zeros if abs(q - z) > 1e-9) \
+        + sum(np.degrees(np.angle(z - p)) for p in poles)
+    return (th + 180.0) % 360.0 - 180.0 if (th + 180.0) % 360.0 != 0 else 180.0
+
+
+@pytest.mark.parametrize("fb", ["negative", "positive"])
+def test_departure_arrival_vs_angle_sum(fb):
+    # angle-sum formulas of METHODS (from memory) versus the first-order motion
+    poles = [-1 + 2j, -1 - 2j, -3, -0.5 + 1j, -0.5 - 1j]
+    zeros = [-2 + 1j, -2 - 1j, -4]
+    a = analyze(np.real(np.poly(zeros)), np.real(np.poly(poles)), feedback=fb)
+    for p, ang in a.departure_angles_deg:
+        ref = _angle_sum_departure(p, poles, zeros, fb == "negative")
+        assert ang == pytest.approx(ref, abs=1e-7)
+    assert len(a.departure_angles_deg) == 4
+    for z, ang in a.arrival_angles_deg:
+        ref = _angle_sum_arrival(z, poles, zeros, fb == "negative")
+        assert ang == pytest.approx(ref, abs=1e-7)
+    assert len(a.arrival_angles_deg) == 2
+
+
+def test_departure_direction_matches_perturbed_roots():
+    # the branch really leaves in that direction: roots at a tiny gain (numpy eigvals)
+    num, den = [1, 3], [1, 2, 5, 0]
+    a = analyze(num, den)
+    p, ang = [t for t in a.departure_angles_deg if t[0].imag > 0][0]
+    k = 1e-6
+    r = np.roots(np.polyadd(den, k * np.array(num, float)))
+    r = r[np.argmin(abs(r - p))]
+    assert np.degrees(np.angle(r - p)) == pytest.approx(ang, abs=1e-3)
+
+
+def test_operating_gain_quantities():
+    # 1/(s(s+2)(s+4)) at k0 = 10: margin 4.8 (critical 48, from memory)
+    a = analyze([1], [1, 6, 8, 0], operating_gain=10.0)
+    assert a.gain_margin == pytest.approx(4.8)
+    assert a.gain_margin_db == pytest.approx(20 * math.log10(4.8))
+    assert math.isnan(a.lower_gain_margin)
+    r = np.roots([1, 6, 8, 10])
+    np.testing.assert_allclose(sorted(a.closed_loop_poles, key=lambda z: (z.real, z.imag)),
+                               sorted(r, key=lambda z: (z.real, z.imag)), rtol=1e-10)
+    assert a.min_damping == pytest.approx(min(-r.real / abs(r)))
+    slow = max(r.real)
+    nxt = min(r.real)
+    assert a.dominance_ratio == pytest.approx(nxt / slow)
+    assert a.second_order_ok == (nxt / slow >= 10)  # rule of thumb (common practice)
+
+
+def test_lower_gain_margin():
+    # s^3 + k(s+1)^2 is stable for k > 1/2 (hand Routh array, from memory)
+    a = analyze([1, 2, 1], [1, 0, 0, 0], operating_gain=2.0)
+    assert a.critical_gain == INF
+    assert a.critical_gain_low == pytest.approx(0.5, rel=1e-10)
+    assert a.lower_gain_margin == pytest.approx(0.25, rel=1e-10)
+
+
+def test_operating_gain_on_boundary_is_unstable():
+    a = analyze([1], [1, 3, 2, 0], operating_gain=6.0)
+    assert math.isnan(a.critical_gain) and not a.stable_at_reference
+
+
+# ---------------------------------------------------------------------------
+# conditioning: wide coefficient spreads, high degree
+
+def test_wide_spread_degree_12():
+    # poles spread over six decades (coefficient spread far beyond 1e12):
+    # reference: mpmath 50-digit roots of P at the found gain put a pair on the axis
+    import mpmath as mp
+
+    poles = -np.logspace(-3, 3, 12)
+    den = np.real(np.poly(poles))
+    num = np.real(np.poly([-0.01, -10.0]))
+    a = analyze(num, den)
+    assert not a.ill_conditioned
+    assert a.boundary_gains, "no crossings found"
+    mp.mp.dps = 50
+    for g, w in zip(a.boundary_gains, a.boundary_frequencies):
+        Pk = [mp.mpf(x) for x in np.polyadd(den, g * num)]
+        roots = mp.polyroots(Pk, maxsteps=500, extraprec=400)
+        near = min(roots, key=lambda z: abs(z - 1j * w))
+        assert abs(near.real) < 1e-7 * w
+        assert abs(near.imag - w) < 1e-7 * w
+
+
+def test_near_double_root_flagged_not_wrong():
+    # the locus of (s^2 + 2 a s + 1) type touching the axis tangentially:
+    # P(s,k) = (s^2 + 1)^2 + k (something) has a double u-root at k = 0+.
+    # We only require: no crash, and either flagged or correct digits.
+    den = np.polymul([1, 0, 1], [1, 1e-9, 1])
+    a = analyze([1, 1], np.polymul(den, [1, 1]))
+    assert isinstance(a, LoopAnalysis)
+
+
+# ---------------------------------------------------------------------------
+# stacks: shapes, determinism, batch independence
+
+def test_shapes_keys_and_widths():
+    V = 7
+    rng = np.random.default_rng(3)
+    N = rng.uniform(0.5, 2, size=(V, 3))
+    D = np.real(np.array([np.poly(-rng.uniform(0.1, 5, 5)) for _ in range(V)]))
+    out = analyze_stack(N, D, sigma=1, operating_gain=1.0)
+    assert set(out) == set(VARIABLE_DIMS) == set(VARIABLE_ATTRS)
+    widths = {"variant": V, "boundary": boundary_width(5, 2), "pole": 5, "zero": 2,
+              "breakaway": breakaway_width(5, 2)}
+    for k, v in out.items():
+        assert v.shape == tuple(widths[d] for d in VARIABLE_DIMS[k]), k
+        assert set(VARIABLE_ATTRS[k]) == {"long_name", "units"}
+    required = ["critical_gain", "critical_gain_low", "crossing_frequency", "stable_at_reference",
+                "stable_at_start", "gain_margin", "gain_margin_db", "lower_gain_margin", "min_damping",
+                "dominance_ratio", "asymptote_centroid", "routh_agrees", "ill_conditioned",
+                "boundary_gain", "boundary_frequency", "stable_above", "open_loop_pole_real",
+                "open_loop_pole_imag", "departure_angle", "closed_loop_pole_real",
+                "closed_loop_pole_imag", "open_loop_zero_real", "open_loop_zero_imag",
+                "arrival_angle", "breakaway_point", "breakaway_gain"]
+    assert set(required) <= set(out)
+    assert out["stable_above"].dtype == np.int8 and out["critical_gain"].dtype == np.float64
+
+
+def _random_stack(seed, V, n=5, m=2):
+    rng = np.random.default_rng(seed)
+    D = np.empty((V, n + 1))
+    for i in range(V):
+        re = -rng.uniform(0.05, 5, n)
+        D[i] = np.real(np.poly(re + 0j))
+        if n >= 2:  # a complex pair in half of them
+            if i % 2:
+                D[i] = np.real(np.poly(np.r_[re[:-2], -0.3 + 1.5j, -0.3 - 1.5j]))
+    N = np.real(np.array([np.poly(-rng.uniform(0.1, 8, m)) for _ in range(V)])) * rng.uniform(0.2, 5, (V, 1))
+    return N, D
+
+
+def test_batch_equals_one_at_a_time_bitwise():
+    N, D = _random_stack(11, 40)
+    full = analyze_stack(N, D, sigma=1, operating_gain=0.7)
+    for i in range(0, 40, 7):
+        one = analyze_stack(N[i:i + 1], D[i:i + 1], sigma=1, operating_gain=0.7)
+        for k in full:
+            np.testing.assert_array_equal(full[k][i], one[k][0], err_msg=k)
+    # a reordered batch gives the same rows
+    perm = np.random.default_rng(0).permutation(40)
+    shuf = analyze_stack(N[perm], D[perm], sigma=1, operating_gain=0.7)
+    for k in full:
+        np.testing.assert_array_equal(full[k][perm], shuf[k], err_msg=k)
+
+
+def test_full_check_mode_agrees():
+    N, D = _random_stack(5, 30)
+    out = analyze_stack(N, D, sigma=1, full_check=True)
+    assert np.all(out["routh_agrees"] == 1)
+
+
+def _loops_strategy():
+    pole = st.floats(0.05, 10)
+    return st.tuples(
+        st.lists(pole, min_size=2, max_size=6),
+        st.lists(st.floats(0.05, 10), min_size=0, max_size=2),
+        st.floats(0.1, 10),
+        st.booleans(),
+    )
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(_loops_strategy())
+def test_property_critical_gain_brackets_stability(loop):
+    # numpy eigenvalues just below / above the critical gain (independent check)
+    poles, zeros, gain, pair = loop
+    roots = [-p for p in poles]
+    if pair and len(roots) >= 2:
+        roots = roots[:-2] + [complex(-poles[-1] * 0.2, poles[-2]), complex(-poles[-1] * 0.2, -poles[-2])]
+    zeros = zeros[: len(roots) - 1]
+    den = np.real(np.poly(roots))
+    num = gain * np.real(np.poly([-z for z in zeros])) if zeros else np.array([gain])
+    out = analyze_stack(num[None, :], den[None, :], sigma=1)
+    if out["ill_conditioned"][0] or not out["stable_at_reference"][0]:
+        return
+    kc = out["critical_gain"][0]
+    assert out["routh_agrees"][0] == 1
+    if math.isinf(kc):
+        r = np.roots(np.polyadd(den, 1e3 * num))
+        assert np.all(r.real < 1e-6 * np.max(abs(r)))
+        return
+    below = np.roots(np.polyadd(den, kc * (1 - 1e-6) * num))
+    above = np.roots(np.polyadd(den, kc * (1 + 1e-6) * num))
+    assert np.all(below.real < 0)
+    assert np.any(above.real >= 0)
+
+
+@settings(max_examples=60, deadline=None)
+@given(_loops_strategy(), st.floats(0.01, 100))
+def test_property_routh_count_matches_eigvals(loop, kk):
+    from sweep.routh import routh_rhp_count
+
+    poles, zeros, gain, _ = loop
+    den = np.real(np.poly([-p for p in poles]))
+    zeros = zeros[: len(poles) - 1]
+    num = gain * np.real(np.poly([-z for z in zeros])) if zeros else np.array([gain])
+    P = np.polyadd(den, kk * num)
+    r = np.roots(P)
+    if np.min(np.abs(r.real)) < 1e-6 * max(1.0, np.max(np.abs(r))):
+        return  # too close to a boundary for a sign test
+    assert routh_rhp_count(P[None, :])[0] == int(np.sum(r.real > 0))
+
+
+# ---------------------------------------------------------------------------
+# input errors and the front object
+
+def test_bad_inputs_raise_input_error():
+    with pytest.raises(InputError):
+        analyze([1, 0, 0], [1, 1])          # improper
+    with pytest.raises(InputError):
+        analyze([1], [1, 1], feedback="sideways")
+    with pytest.raises(InputError):
+        analyze([1], [1, 1], gain_range=(5, 1))
+    with pytest.raises(InputError):
+        analyze([1], [1, 1], operating_gain=-3.0)
+    with pytest.raises(InputError):
+        analyze([float("nan")], [1, 1])
+    with pytest.raises(InputError):
+        analyze_stack(np.ones((2, 1)), np.array([[1.0, 1.0], [0.0, 1.0]]), sigma=1)
+
+
+def test_to_dict_is_json_ready():
+    import json
+
+    d = analyze([1, 3], [1, 2, 5]).to_dict()
+    json.dumps(d, allow_nan=False)
+    assert d["critical_gain"] == "inf" and d["crossing_frequency"] is None
+    for key in ["numerator", "denominator", "open_loop_poles", "open_loop_zeros", "boundary_gains",
+                "boundary_frequencies", "stable_intervals", "reference_gain", "critical_gain",
+                "critical_gain_low", "crossing_frequency", "asymptotes", "breakaway_points",
+                "departure_angles_deg", "arrival_angles_deg"]:
+        assert key in d
+    assert d["departure_angles_deg"][0][0] == [-1.0, -2.0]
