@@ -24,13 +24,14 @@ from __future__ import annotations
 
 import os
 from pathlib import Path
-from typing import Iterable, Mapping
+from typing import Callable, Iterable, Mapping
 
 import netCDF4
 import numpy as np
 import xarray as xr
 
 from .errors import SweepError
+from .locus import Envelope
 
 __all__ = [
     "PartError",
@@ -228,6 +229,8 @@ def merge_parts(
     part_paths: Iterable[str | os.PathLike],
     out_path: str | os.PathLike,
     attrs: Mapping[str, object],
+    *,
+    _after_part: Callable[[int], None] | None = None,
 ) -> Path:
     """Merge part files (in the given order, contiguous variant ranges) into one result.
 
@@ -239,6 +242,8 @@ def merge_parts(
         The result file, replaced atomically.
     attrs
         Global attributes of the result (see `result_attrs`).
+    _after_part
+        Called with the number of parts appended so far (progress; test hook).
 
     Returns
     -------
@@ -281,7 +286,7 @@ def merge_parts(
                 v.setncatts(a)
             out.setncatts(dict(attrs))
 
-            env_min = env_max = env_sum = env_cnt = None
+            env = None
             kv = 0
             for i, p in enumerate(paths):
                 ds = first if i == 0 else read_part(p)
@@ -297,20 +302,15 @@ def merge_parts(
                     elif i == 0:
                         out[name][...] = _values(var)
                 kv += nk
-                e = [ds[v].values.astype(np.float64) for v in ENVELOPE_VARS]
-                if env_min is None:
-                    env_min, env_max, env_sum, env_cnt = e
-                else:
-                    env_min = np.fmin(env_min, e[0])
-                    env_max = np.fmax(env_max, e[1])
-                    env_sum = env_sum + e[2]
-                    env_cnt = env_cnt + e[3]
+                if _after_part is not None:
+                    out.sync()
+                    _after_part(i + 1)
+                part_env = Envelope.from_arrays(*(ds[v].values for v in ENVELOPE_VARS))
+                env = part_env if env is None else env.merge(part_env)
                 del ds
-            with np.errstate(invalid="ignore", divide="ignore"):
-                mean = np.where(env_cnt > 0, env_sum / np.where(env_cnt > 0, env_cnt, 1), np.nan)
-            out["abscissa_min"][:] = env_min
-            out["abscissa_max"][:] = env_max
-            out["abscissa_mean"][:] = mean
+            out["abscissa_min"][:] = env.min
+            out["abscissa_max"][:] = env.max
+            out["abscissa_mean"][:] = env.mean
         _publish(tmp, out_path)
     finally:
         if tmp.exists():
