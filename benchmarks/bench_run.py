@@ -1,0 +1,93 @@
+"""End-to-end throughput of `sweep run` against bare eigenvalue baselines.
+
+Measures, in one process and on the same variants and gains:
+
+* the whole ``sweep.run`` (designs, analysis, locus tracing with the
+  envelope, part files, merge) with ``-j 1`` and ``-j 2``;
+* a bare batched ``numpy.linalg.eigvals`` pass: companion matrices of the
+  closed loop built and solved at every grid gain, batched over variants;
+* a per-variant Python loop calling ``numpy.roots`` at every gain (timed on a
+  subset and scaled up linearly).
+
+Usage::
+
+    python benchmarks/bench_run.py                 # 50 000 variants x 200 gains (a few minutes)
+    python benchmarks/bench_run.py --variants 5000 # quicker
+
+Ratios, not absolute times, are the result: the machine may be shared.
+"""
+from __future__ import annotations
+
+import argparse
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from sweep import bench, designs, loop, runner
+from sweep.config import parse_config
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--variants", type=int, default=50000)
+    ap.add_argument("--gains", type=int, default=200)
+    ap.add_argument("--roots-subset", type=int, default=300, help="variants timed in the numpy.roots loop")
+    ap.add_argument("--skip-j2", action="store_true")
+    args = ap.parse_args()
+
+    text = bench.DEFAULT_CONFIG.replace("samples = 50000", f"samples = {args.variants}").replace(
+        "points = 200", f"points = {args.gains}"
+    )
+    text = text.replace("seed = 0\n", "seed = 0\nchunk_size = 4096\n")
+    with tempfile.TemporaryDirectory() as tmp:
+        cfg_path = Path(tmp) / "bench.toml"
+        cfg_path.write_text(text)
+        config = parse_config(text, source=str(cfg_path))
+        m, n = loop.open_loop_degrees(config)
+        print(f"loop: degree {n} (numerator {m}), {len(config.uncertain)} uncertain parameters, "
+              f"{args.variants} variants x {args.gains} gains, keep = none")
+
+        t0 = time.perf_counter()
+        runner.run(config, out=Path(tmp) / "j1.nc", jobs=1, quiet=True)
+        t_j1 = time.perf_counter() - t0
+        print(f"sweep run -j 1            {t_j1:9.2f} s")
+
+        t_j2 = float("nan")
+        if not args.skip_j2:
+            t0 = time.perf_counter()
+            runner.run(config, out=Path(tmp) / "j2.nc", jobs=2, quiet=True)
+            t_j2 = time.perf_counter() - t0
+            print(f"sweep run -j 2            {t_j2:9.2f} s")
+
+        variants = designs.generate(config)
+        N, D = loop.assemble(config, variants.values)
+        gains = runner.nominal_gains(config)
+        t0 = time.perf_counter()
+        bench.companion_eigvals_pass(N, D, config.sigma, gains)
+        t_eig = time.perf_counter() - t0
+        print(f"bare eigvals pass         {t_eig:9.2f} s")
+
+        sub = min(args.roots_subset, N.shape[0])
+        t0 = time.perf_counter()
+        width = D.shape[1]
+        Np = np.zeros_like(D)
+        Np[:, width - N.shape[1]:] = N
+        for v in range(sub):
+            for k in gains:
+                np.roots(D[v] + config.sigma * k * Np[v])
+        t_roots = (time.perf_counter() - t0) * N.shape[0] / sub
+        print(f"numpy.roots loop          {t_roots:9.2f} s  (timed on {sub} variants, scaled)")
+
+    print()
+    print("| measure | ratio | target |")
+    print("|---|---|---|")
+    print(f"| `sweep run -j 1` / bare eigvals pass | {t_j1 / t_eig:.3f} | <= 0.5 |")
+    print(f"| numpy.roots loop / `sweep run -j 1` | {t_roots / t_j1:.1f} | >= 50 |")
+    if not args.skip_j2:
+        print(f"| `-j 1` time / `-j 2` time | {t_j1 / t_j2:.2f} | >= 1.6 |")
+
+
+if __name__ == "__main__":
+    main()
