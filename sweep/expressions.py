@@ -572,7 +572,8 @@ def evaluate_rational(node: Node, env: Mapping[str, Any]) -> Rational:
         expression in ``s``.
     """
     if not has_s(node):
-        return Rational.constant(evaluate(node, env))
+        # the node itself is the construction key: equal sub-trees, equal values
+        return Rational.constant(evaluate(node, env), key=node)
     if isinstance(node, S):
         return Rational.s()
     if isinstance(node, Neg):

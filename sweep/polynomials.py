@@ -130,13 +130,44 @@ def poly_mul(a: Poly, b: Poly) -> Poly:
 
 
 def _poly_same(a: Poly, b: Poly) -> bool:
-    return a is b or (len(a) == len(b) and all(_same(x, y) for x, y in zip(a, b)))
+    """Structurally identical denominators when no construction key is known.
+
+    Only the same objects (or equal plain numbers) count: two Intervals that
+    happen to have equal ends may stand for different parameter expressions,
+    and merging them would not enclose the true sum.
+    """
+    if a is b:
+        return True
+    if len(a) != len(b):
+        return False
+    return all(x is y or (_is_scalar(x) and _is_scalar(y) and x == y) for x, y in zip(a, b))
 
 
 def _as_rational(x: Any) -> "Rational":
     if isinstance(x, Rational):
         return x
     return Rational([x], [1])
+
+
+# Construction keys: hashable descriptions of how a numerator / denominator
+# was built from the expression tree. Equal keys mean equal polynomials, so
+# the decision "same denominator, do not multiply" depends on the tree only
+# and is the same for float, array and interval coefficients.
+ONE = ("1",)
+
+
+def _kmul(a: Any, b: Any) -> Any:
+    if a is None or b is None:
+        return None
+    if a == ONE:
+        return b
+    if b == ONE:
+        return a
+    return ("*", a, b)
+
+
+def _kop(op: str, *keys: Any) -> Any:
+    return None if any(k is None for k in keys) else (op,) + keys
 
 
 class Rational:
@@ -147,29 +178,35 @@ class Rational:
     num, den
         Coefficient lists, highest power of s first. Coefficients may be
         floats, ndarrays ``(V,)`` or `Interval`s.
+    num_key, den_key
+        Optional hashable construction keys (set by
+        `sweep.expressions.evaluate_rational`): equal den keys mean
+        identical denominators. Without keys, only identical objects count.
 
     Notes
     -----
     No cancellation is ever done: a common factor stays (it is a closed-loop
-    mode). Sums with a constant or identical denominator do not multiply
-    denominators up.
+    mode). Sums with identical denominators do not multiply them (no
+    spurious poles); a constant denominator adds no poles either way.
     """
 
-    __slots__ = ("num", "den")
+    __slots__ = ("num", "den", "num_key", "den_key")
 
-    def __init__(self, num: Poly, den: Poly | None = None):
+    def __init__(self, num: Poly, den: Poly | None = None, *, num_key: Any = None, den_key: Any = None):
         self.num = poly_trim(list(num)) if len(num) else [0]
         self.den = poly_trim(list(den)) if den is not None and len(den) else [1]
+        self.num_key = num_key
+        self.den_key = den_key
 
     @classmethod
-    def constant(cls, c: Coeff) -> "Rational":
-        """The constant rational function `c`."""
-        return cls([c], [1])
+    def constant(cls, c: Coeff, key: Any = None) -> "Rational":
+        """The constant rational function `c` (`key`: construction key of the value)."""
+        return cls([c], [1], num_key=None if key is None else ("const", key), den_key=ONE)
 
     @classmethod
     def s(cls) -> "Rational":
         """The Laplace variable ``s``."""
-        return cls([1, 0], [1])
+        return cls([1, 0], [1], num_key=("s",), den_key=ONE)
 
     # --------------------------------------------------------------- degree
     @property
@@ -192,23 +229,32 @@ class Rational:
 
     # ------------------------------------------------------------ arithmetic
     def __neg__(self) -> "Rational":
-        return Rational(poly_neg(self.num), self.den)
+        return Rational(poly_neg(self.num), self.den, num_key=_kop("-", self.num_key), den_key=self.den_key)
 
     def __pos__(self) -> "Rational":
         return self
 
     def __add__(self, other: Any) -> "Rational":
         o = _as_rational(other)
-        if _poly_same(self.den, o.den):
-            return Rational(poly_add(self.num, o.num), self.den)
+        if self.den_key is not None and o.den_key is not None:
+            same = self.den_key == o.den_key
+        else:
+            same = _poly_same(self.den, o.den)
+        if same:
+            return Rational(poly_add(self.num, o.num), self.den,
+                            num_key=_kop("+", self.num_key, o.num_key), den_key=self.den_key)
+        nk = _kop("+", _kmul(self.num_key, o.den_key), _kmul(o.num_key, self.den_key))
+        dk = _kmul(self.den_key, o.den_key)
         if len(o.den) == 1 and _is_one(o.den[0]):
-            return Rational(poly_add(self.num, poly_mul(o.num, self.den)), self.den)
+            return Rational(poly_add(self.num, poly_mul(o.num, self.den)), self.den, num_key=nk, den_key=dk)
         if len(self.den) == 1 and _is_one(self.den[0]):
-            return Rational(poly_add(poly_mul(self.num, o.den), o.num), o.den)
+            return Rational(poly_add(poly_mul(self.num, o.den), o.num), o.den, num_key=nk, den_key=dk)
         # general a/b + c/d = (ad + cb)/(bd); a constant b or d adds no poles
         return Rational(
             poly_add(poly_mul(self.num, o.den), poly_mul(o.num, self.den)),
             poly_mul(self.den, o.den),
+            num_key=nk,
+            den_key=dk,
         )
 
     def __radd__(self, other: Any) -> "Rational":
@@ -222,18 +268,20 @@ class Rational:
 
     def __mul__(self, other: Any) -> "Rational":
         o = _as_rational(other)
-        return Rational(poly_mul(self.num, o.num), poly_mul(self.den, o.den))
+        return Rational(poly_mul(self.num, o.num), poly_mul(self.den, o.den),
+                        num_key=_kmul(self.num_key, o.num_key), den_key=_kmul(self.den_key, o.den_key))
 
     def __rmul__(self, other: Any) -> "Rational":
         return _as_rational(other) * self
 
     def reciprocal(self) -> "Rational":
         """``den / num``."""
-        return Rational(self.den, self.num)
+        return Rational(self.den, self.num, num_key=self.den_key, den_key=self.num_key)
 
     def __truediv__(self, other: Any) -> "Rational":
         o = _as_rational(other)
-        return Rational(poly_mul(self.num, o.den), poly_mul(self.den, o.num))
+        return Rational(poly_mul(self.num, o.den), poly_mul(self.den, o.num),
+                        num_key=_kmul(self.num_key, o.den_key), den_key=_kmul(self.den_key, o.num_key))
 
     def __rtruediv__(self, other: Any) -> "Rational":
         return _as_rational(other) / self
@@ -244,7 +292,7 @@ class Rational:
         n = int(n)
         base = self if n >= 0 else self.reciprocal()
         n = abs(n)
-        result = Rational([1], [1])
+        result = Rational([1], [1], num_key=ONE, den_key=ONE)
         # square-and-multiply: O(log n) polynomial products
         while n:
             if n & 1:

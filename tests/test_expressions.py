@@ -279,7 +279,9 @@ def test_interval_coefficients_enclose_points(rel, t):
     text, values = LOOPS[0]
     tree = parse(text)
     boxes = {k: Interval(v * (1 - rel), v * (1 + rel)) for k, v in values.items()}
-    point = {k: v * (1 - rel) + ti * 2 * rel * v for (k, v), ti in zip(values.items(), t)}
+    # points clamped into the float box ends (the sum could round past hi)
+    point = {k: min(max(v * (1 - rel) + ti * 2 * rel * v, float(boxes[k].lo)), float(boxes[k].hi))
+             for (k, v), ti in zip(values.items(), t)}
     Ni, Di = evaluate_rational(tree, boxes).stacked_interval(1)
     N, D = evaluate_rational(tree, point).stacked(1)
     assert Ni.contains(N).all() and Di.contains(D).all()
@@ -288,3 +290,22 @@ def test_interval_coefficients_enclose_points(rel, t):
 def test_s_not_evaluable_as_number():
     with pytest.raises(ExpressionError):
         evaluate(parse("s + 1"), {})
+
+
+@pytest.mark.parametrize("text,deg", [
+    ("1/(2*s + 1) + R/(2*s + 1)", 1),            # identical denominators: merged
+    ("1/(R*s + 1) + 1/(L*s + 1)", 2),            # different parameters, equal values: not merged
+    ("(s + 3)^-2 - R/(s + 3)^2 + s/(s+3)^2", 2),
+])
+def test_same_degrees_for_floats_arrays_and_intervals(text, deg):
+    tree = parse(text)
+    fl = evaluate_rational(tree, {"R": 1.0, "L": 1.0})
+    ar = evaluate_rational(tree, {"R": np.ones(3), "L": np.ones(3)})
+    iv = evaluate_rational(tree, {"R": Interval(np.full(3, 0.9), np.full(3, 1.1)),
+                                  "L": Interval(np.full(3, 0.9), np.full(3, 1.1))})
+    assert fl.den_degree == ar.den_degree == iv.den_degree == deg
+    assert fl.num_degree == ar.num_degree == iv.num_degree
+    # and the interval coefficients enclose the point ones
+    Ni, Di = iv.stacked_interval(3)
+    N, D = ar.stacked(3)
+    assert Ni.contains(N).all() and Di.contains(D).all()
