@@ -554,10 +554,24 @@ def crossings_figure(ds: xr.Dataset, *, dpi: float | None = None):
                     bins = 10
                 ax.hist(f, bins=bins, color=SKY, edgecolor=BLUE, lw=0.5, zorder=2)
             if log:
+                from matplotlib.ticker import LogLocator, NullFormatter
+
                 ax.set_xscale("log")
+                ax.xaxis.set_minor_formatter(NullFormatter())  # minor labels collide
+                from matplotlib.ticker import FuncFormatter
+
+                ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
+                ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
+                ax.set_xlim(f.min() / 1.15, f.max() * 1.15)
+            elif f.size:
+                pad = 0.04 * (f.max() - f.min() or abs(f.max()) or 1.0)
+                ax.set_xlim(f.min() - pad, f.max() + pad)
             for val, colour, ls in ((wv, VERMILLION, "-"), (nv, BLACK, "--")):
                 if val is not None and math.isfinite(val) and val > 0:
                     ax.axvline(val, color=colour, lw=1.8, ls=ls, zorder=4)
+                    ax.annotate(_fmt(val), (val, 1.0), xycoords=("data", "axes fraction"),
+                                xytext=(3, -2), textcoords="offset points", ha="left", va="top",
+                                fontsize=7.5, color=colour)
             ax.set_xlabel(label + (" (log scale)" if log else ""))
             ax.set_ylabel("variants")
             note = []
@@ -573,11 +587,20 @@ def crossings_figure(ds: xr.Dataset, *, dpi: float | None = None):
             msg.append(f"{n_inf} never lose stability in the gain range (critical gain inf, no bar)")
         if n_un:
             msg.append(f"{n_un} unstable at the reference gain (no bar)")
-        fig.text(0.01, 0.015, "; ".join(msg), fontsize=8, color="#404040", ha="left")
+            if w:
+                msg.append(f"worst case: variant {w['variant']} ({w['design']}), unstable at the "
+                           "reference gain, so no worst-case line")
+        k_ref = summary["reference_gain"]
+        if k_ref > 0:
+            axes[0].axvline(k_ref, color=ORANGE, lw=1.4, ls=":", zorder=4)
         handles = [Line2D([], [], color=VERMILLION, lw=1.8, label="worst case"),
                    Line2D([], [], color=BLACK, lw=1.8, ls="--", label="nominal")]
-        fig.legend(handles=handles, loc="lower right", ncol=2, frameon=False,
-                   bbox_to_anchor=(0.99, 0.0))
+        if k_ref > 0:
+            handles.append(Line2D([], [], color=ORANGE, lw=1.4, ls=":", label="reference gain"))
+        fig.legend(handles=handles, loc="lower right", ncol=len(handles), frameon=False,
+                   bbox_to_anchor=(0.99, 0.06))
+        fig.text(0.01, 0.015, "\n".join(["; ".join(msg[:2])] + msg[2:]), fontsize=8,
+                 color="#404040", ha="left", va="bottom")
         _title(fig, ds, "Where stability is lost: critical gains and crossing frequencies")
     return fig
 
@@ -612,11 +635,17 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
     from matplotlib.colors import LogNorm, Normalize
     from matplotlib.patches import Patch
 
-    xa, xb, val = table["a"], table["b"], table["value"]
+    val = table["value"]
+    # axis values with a power of ten moved into the label, as in the limits plot
+    _sa, la_label = _scaled(ds, a)
+    _sb, lb_label = _scaled(ds, b)
+    fa = _sa[0] / float(ds[a].values[0]) if float(ds[a].values[0]) else 1.0
+    fb = _sb[0] / float(ds[b].values[0]) if float(ds[b].values[0]) else 1.0
+    xa, xb = table["a"] * fa, table["b"] * fb
     finite = val[np.isfinite(val)]
     with plt.rc_context(_STYLE):
         fig, ax = plt.subplots(figsize=(6.6, 5.2), dpi=dpi or 100)
-        fig.subplots_adjust(left=0.13, right=0.92, top=0.84, bottom=0.2)
+        fig.subplots_adjust(left=0.12, right=0.88, top=0.84, bottom=0.2)
 
         def edges(c):
             if c.size == 1:
@@ -627,7 +656,11 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
         if finite.size and finite.min() > 0 and finite.max() / finite.min() > 20:
             norm = LogNorm(finite.min(), finite.max())
         elif finite.size:
-            norm = Normalize(finite.min(), finite.max() if finite.max() > finite.min() else finite.min() + 1)
+            lo_v, hi_v = float(finite.min()), float(finite.max())
+            mid = 0.5 * (lo_v + hi_v)
+            # a tiny spread must not look like a big one: at least +-5 % of the value
+            half = max(0.5 * (hi_v - lo_v), 0.05 * abs(mid), 1e-12)
+            norm = Normalize(mid - half, mid + half)
         else:
             norm = Normalize(0, 1)
         import matplotlib
@@ -642,35 +675,52 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
             if np.isposinf(v):
                 ax.add_patch(_cell(edges(xa), edges(xb), i, j, fc="white", hatch="///", ec=GREEN))
             elif np.isnan(v):
-                ax.add_patch(_cell(edges(xa), edges(xb), i, j, fc=VERMILLION, hatch="xx", ec="white"))
+                ax.add_patch(_cell(edges(xa), edges(xb), i, j, fc="#f3c9b1", hatch="xx", ec=VERMILLION))
         if np.isposinf(val).any():
             extra.append(Patch(fc="white", ec=GREEN, hatch="///", label="inf: never unstable in range"))
         if np.isnan(val).any():
-            extra.append(Patch(fc=VERMILLION, ec="white", hatch="xx", label="unstable at reference gain"))
+            extra.append(Patch(fc="#f3c9b1", ec=VERMILLION, hatch="xx", label="unstable at reference gain"))
         if val.size <= 49:
             for (j, i), v in np.ndenumerate(val):
                 if np.isfinite(v):
                     rgba = cmap(norm(v))
                     light = 0.299 * rgba[0] + 0.587 * rgba[1] + 0.114 * rgba[2] > 0.55
                     ax.text(xa[i], xb[j], _fmt(float(v)), ha="center", va="center", fontsize=7.5,
-                            color=BLACK if light else "white")
+                            color=BLACK if light else "white", zorder=6,
+                            bbox=dict(boxstyle="square,pad=0.15", fc=rgba, ec="none"))
         if finite.size:
             jw, iw = np.unravel_index(np.nanargmin(np.where(np.isfinite(val), val, np.nan)), val.shape)
             ax.plot(xa[iw], xb[jw], "s", ms=22, mfc="none", mec=VERMILLION, mew=2.2)
             extra.append(plt.Line2D([], [], marker="s", ls="none", mfc="none", mec=VERMILLION, mew=2,
-                                    ms=10, label="smallest over the plane"))
+                                    ms=10, label="smallest finite value"))
         nom = _nominal_index(ds)
         if nom is not None:
-            ax.plot(float(ds[a].values[nom]), float(ds[b].values[nom]), "P", ms=10, color=ORANGE,
-                    mec=BLACK, mew=0.8)
-            extra.append(plt.Line2D([], [], marker="P", ls="none", color=ORANGE, mec=BLACK, ms=9,
-                                    label="nominal values"))
+            # cross-hair lines, so the cell's number stays readable
+            from matplotlib import patheffects
+
+            halo = [patheffects.withStroke(linewidth=3.2, foreground=BLACK)]
+            ax.axvline(float(ds[a].values[nom]) * fa, color=ORANGE, lw=1.6, ls=(0, (4, 2)),
+                       path_effects=halo)
+            ax.axhline(float(ds[b].values[nom]) * fb, color=ORANGE, lw=1.6, ls=(0, (4, 2)),
+                       path_effects=halo)
+            extra.append(plt.Line2D([], [], color=ORANGE, lw=1.6, ls=(0, (4, 2)),
+                                    path_effects=halo, label="nominal values"))
         cb = fig.colorbar(mesh, ax=ax, fraction=0.05, pad=0.03)
         cb.set_label("smallest critical gain over the other parameters")
-        ax.set_xlabel(_label(ds, a))
-        ax.set_ylabel(_label(ds, b))
+        from matplotlib.ticker import FuncFormatter, NullFormatter
+
+        if isinstance(norm, LogNorm):
+            from matplotlib.ticker import LogLocator
+
+            cb.ax.yaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
+        cb.ax.yaxis.set_minor_formatter(NullFormatter())
+        cb.ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
+        ax.set_xlabel(la_label)
+        ax.set_ylabel(lb_label)
         ax.set_xticks(xa)
         ax.set_yticks(xb)
+        ax.set_xticklabels([f"{v:.4g}" for v in xa])
+        ax.set_yticklabels([f"{v:.4g}" for v in xb])
         ax.tick_params(axis="x", labelrotation=30 if xa.size > 5 else 0)
         ax.grid(False)
         if extra:
