@@ -57,6 +57,8 @@ FUNCTIONS = ("sqrt", "exp", "log", "sin", "cos", "tan")
 _ALLOWED = "numbers, parameter names, s, + - * / ^ **, parentheses and the functions " + ", ".join(FUNCTIONS)
 # integer powers of expressions in s beyond this would blow up the degree
 MAX_S_POWER = 64
+# a config expression is a line or two; this bounds parser and evaluator depth
+MAX_TEXT = 10_000
 
 
 # ----------------------------------------------------------------- tree nodes
@@ -115,7 +117,7 @@ Node = Union[Number, Name, S, Neg, Binary, Power, Call]
 
 
 # ------------------------------------------------------------------ tokenizer
-_NUMBER = re.compile(r"(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
+_NUMBER = re.compile(r"([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?")  # ASCII digits only
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
 _OPS = ("**", "+", "-", "*", "/", "^", "(", ")", ",")
 
@@ -315,7 +317,12 @@ def parse(text: str) -> Node:
     """
     if not isinstance(text, str):
         raise _err(f"expected expression text, found {type(text).__name__}")
-    return _Parser(text).parse()
+    if len(text) > MAX_TEXT:
+        raise _err(f"expression is {len(text)} characters long; at most {MAX_TEXT} are allowed")
+    try:
+        return _Parser(text).parse()
+    except RecursionError:
+        raise _err("expression is nested too deeply; simplify the parentheses") from None
 
 
 # ------------------------------------------------------------------ inspection

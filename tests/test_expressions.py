@@ -159,7 +159,7 @@ INJECTIONS = [
     "__import__('os').system('x')", "().__class__", "(lambda: 1)()", "[x for x in y]", "a.b", "a[0]",
     "R if 1 else 2", "open('f')", "__builtins__", "s; import os", "'str'", "nan", "inf", "1e999",
     "2**", "((R)", "R R", "sqrt()", "sqrt(R, L)", "", "   ", "R)", "foo(R)", "_x", "a,b", "x = 1",
-    "NaN", "Infinity", "R @ L", "1..2", "2R",
+    "NaN", "Infinity", "R @ L", "1..2", "2R", "1e", "\u0661", "(" * 5000 + "R" + ")" * 5000, "R^" * 3000 + "R",
 ]
 
 
