@@ -463,13 +463,29 @@ def branch_and_bound(
     if p <= 10:
         corners = np.array(list(itertools.product((0.0, 1.0), repeat=p))) if p else np.zeros((1, 0))
         start.append(low + corners * (high - low))
-    bad = points(np.concatenate(start))
-    if bad is not None:
-        return _Result(math.nan, math.nan, 0, bad, "unstable_at_reference",
+    X0 = np.concatenate(start)
+    g0 = point_gains(X0)
+    if np.isnan(g0).any():
+        return _Result(math.nan, math.nan, 0, X0[np.argmax(np.isnan(g0))], "unstable_at_reference",
                        "a point of the box is unstable at the reference gain")
+    i0 = int(np.argmin(g0))
+    best_val, best_x = float(g0[i0]), X0[i0].copy()
     if refine and p > 0 and np.isfinite(best_val):
-        _refine(point_gains, low, high, best_x, lambda x, v: points(x[None]))
-        best_x = best_x if best_x is not None else centre
+        found_bad: list[np.ndarray] = []
+
+        def record(x, v):
+            nonlocal best_val, best_x
+            if math.isnan(v):
+                found_bad.append(x)
+            elif v < best_val:
+                best_val, best_x = v, x.copy()
+
+        # polish from the few best starting points at once
+        order = np.argsort(g0)[: min(4, g0.size)]
+        _refine(point_gains, low, high, X0[order], record)
+        if found_bad:
+            return _Result(math.nan, math.nan, 0, found_bad[0], "unstable_at_reference",
+                           "a point of the box is unstable at the reference gain")
 
     # open boxes as arrays
     B_lo = low[None].copy()
@@ -587,24 +603,38 @@ def _bounds(enclose: EncloseFn, lows, highs, sigma, gain_range, reference):
     return bound, status
 
 
-def _refine(point_gains: PointFn, low, high, x0, record) -> None:
-    """Bounded local minimisation of the critical gain from ``x0`` (only improves the upper bound)."""
-    from scipy.optimize import minimize
+def _refine(point_gains: PointFn, low, high, starts: np.ndarray, record, max_iter: int = 60) -> None:
+    """Bounded pattern search of the critical gain from a few starting points.
 
+    All ``2 p`` coordinate moves of every start are evaluated in one batch per
+    iteration (no per-point calls); a start moves to its best neighbour when
+    that improves it, else its step halves.  Only improves the upper bound.
+    """
     span = np.where(high > low, high - low, 1.0)
-    u0 = (x0 - low) / span
-
-    def f(u):
-        x = low + np.clip(u, 0.0, 1.0) * span
-        g = point_gains(x[None])[0]
-        record(x, g)
-        return g if np.isfinite(g) else 1e300
-
-    try:
-        minimize(f, u0, method="Nelder-Mead", bounds=[(0.0, 1.0)] * u0.size,
-                 options={"maxfev": 60 * max(1, u0.size), "xatol": 1e-6, "fatol": 0.0})
-    except Exception:  # a polish step must never break certification
-        pass
+    U = np.clip((np.atleast_2d(starts) - low) / span, 0.0, 1.0)
+    S, p = U.shape
+    f = point_gains(low + U * span)
+    f = np.where(np.isnan(f), np.inf, f)
+    h = np.full(S, 0.25)
+    moves = np.concatenate([np.eye(p), -np.eye(p)])  # (2p, p)
+    for _ in range(max_iter):
+        active = h > 1e-5
+        if not active.any():
+            break
+        cand = np.clip(U[:, None, :] + h[:, None, None] * moves[None], 0.0, 1.0).reshape(S * 2 * p, p)
+        X = low + cand * span
+        g = point_gains(X)
+        if np.isnan(g).any():
+            record(X[np.argmax(np.isnan(g))], np.nan)
+            return
+        record(X[np.argmin(g)], float(g.min()))
+        g = g.reshape(S, 2 * p)
+        j = np.argmin(g, axis=1)
+        gbest = g[np.arange(S), j]
+        better = active & (gbest < f)
+        U[better] = cand.reshape(S, 2 * p, p)[better, j[better]]
+        f = np.where(better, gbest, f)
+        h = np.where(better | ~active, h, 0.5 * h)
 
 
 # ---------------------------------------------------------------------------
