@@ -187,10 +187,15 @@ def _stack_roots(c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     a0 = np.where(deg > 0, a[:, 0], 1.0)
     M = np.zeros((V, d, d))
     j = np.arange(d)
-    M[:, 0, :] = np.where(j[None, :] < deg[:, None], -a[:, 1:] / a0[:, None], 0.0)
     sub = np.arange(1, d)
-    M[:, sub, sub - 1] = np.where(sub[None, :] < deg[:, None], 1.0, 0.0)
-    M[:, j, j] += np.where(j[None, :] >= deg[:, None], _DUMMY, 0.0)
+    M[:, 0, :] = -a[:, 1:] / a0[:, None]
+    M[:, sub, sub - 1] = 1.0
+    if np.any(deg < d):
+        # Only deficient variants are touched, so full-degree rows get exactly the
+        # same matrix whatever else is in the batch.
+        M[:, 0, :] = np.where(j[None, :] < deg[:, None], M[:, 0, :], 0.0)
+        M[:, sub, sub - 1] = np.where(sub[None, :] < deg[:, None], 1.0, 0.0)
+        M[:, j, j] = np.where(j[None, :] >= deg[:, None], _DUMMY, M[:, j, j])
     r = np.linalg.eigvals(M).astype(complex)
     r = np.where(np.abs(r) > 1e100, np.nan + 0j, r)
     return r, deg
@@ -443,7 +448,14 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
     tg = _test_gains(lower_f, upper_f)                                  # (V, W+1)
     tgs = tg / g[:, None]
     Pt = Ds[:, None, :] + sigma * tgs[:, :, None] * Nsp[:, None, :]     # (V, W+1, n+1)
-    cnt, zrow, _ = routh_rhp_count(Pt.reshape(-1, n + 1), return_flags=True)
+    # only intervals that exist are tested (rows are independent, so compacting
+    # the stack does not change any result)
+    ex = exists.reshape(-1)
+    c_ex, z_ex, _ = routh_rhp_count(Pt.reshape(-1, n + 1)[ex], return_flags=True)
+    cnt = np.zeros(V * (W + 1), dtype=c_ex.dtype)
+    zrow = np.zeros(V * (W + 1), dtype=bool)
+    cnt[ex] = c_ex
+    zrow[ex] = z_ex
     cnt = cnt.reshape(V, W + 1)
     zrow = zrow.reshape(V, W + 1)
     lead_ok = np.abs(Pt[:, :, 0]) > 1e-12
@@ -542,7 +554,8 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
         cl_t = _sort_complex(_companion_eigvals(Pop))
         cl = cl_t * w0[:, None]
         r_eig = np.sum(cl_t.real > 1e-9, axis=1)
-        r_routh = routh_rhp_count(Pop)
+        # the Routh count of the interval holding the operating gain
+        r_routh = np.take_along_axis(cnt, j[:, None], 1)[:, 0]
         agrees = (r_eig == r_routh) | on_boundary
         with np.errstate(invalid="ignore", divide="ignore"):
             gm = np.where(stable_ref, crit / k_op, np.nan)

@@ -35,48 +35,56 @@ _EPSILON = 1e-9
 
 
 def _routh_core(P: np.ndarray, keep_rows: bool):
-    """Routh array of a stack ``(V, n+1)``; returns first column, rows, flags."""
+    """Routh array of a stack ``(V, n+1)``; returns first column, rows, flags.
+
+    Rows are held transposed, ``(width, V)``, so every entry of a row is a
+    contiguous vector over the stack.
+    """
     P = np.asarray(P, dtype=float)
     V, n1 = P.shape
     n = n1 - 1
     width = n // 2 + 1
-    r0 = np.zeros((V, width))
-    r1 = np.zeros((V, width))
-    r0[:, : len(range(0, n1, 2))] = P[:, 0::2]
-    r1[:, : len(range(1, n1, 2))] = P[:, 1::2]
-    first = np.empty((V, n1))
-    first[:, 0] = r0[:, 0]
+    Pt = np.ascontiguousarray(P.T)
+    r0 = np.zeros((width, V))
+    r1 = np.zeros((width, V))
+    r0[: len(range(0, n1, 2))] = Pt[0::2]
+    r1[: len(range(1, n1, 2))] = Pt[1::2]
+    first = np.empty((n1, V))
+    first[0] = r0[0]
     zero_row = np.zeros(V, dtype=bool)  # an auxiliary polynomial appeared
     used_eps = np.zeros(V, dtype=bool)
-    rows = [r0.copy()] if keep_rows else None
+    rows = [r0.T.copy()] if keep_rows else None
     prev, cur = r0, r1
+    scale = np.abs(prev).max(axis=0)
     for i in range(n):
         # `cur` is the row of power n-1-i, `prev` the row of power n-i.
-        scale = np.max(np.abs(prev), axis=1)
-        scale = np.where(scale > 0, scale, 1.0)
-        tiny = _ZERO_RTOL * scale
-        all_zero = np.all(np.abs(cur) <= tiny[:, None], axis=1)
-        if np.any(all_zero):
+        tiny = _ZERO_RTOL * np.where(scale > 0, scale, 1.0)
+        acur = np.abs(cur)
+        cscale = acur.max(axis=0)
+        all_zero = cscale <= tiny
+        if all_zero.any():
             # Row of zeros: replace by the derivative of the auxiliary polynomial
             # built from the row above (powers n-i, n-i-2, ...).
-            powers = (n - i) - 2 * np.arange(width)
-            deriv = prev * np.clip(powers, 0, None)[None, :]
-            cur = np.where(all_zero[:, None], deriv, cur)
+            powers = np.clip((n - i) - 2 * np.arange(width), 0, None).astype(float)
+            cur = np.where(all_zero[None, :], prev * powers[:, None], cur)
             zero_row |= all_zero
-        small_first = np.abs(cur[:, 0]) <= tiny
-        if np.any(small_first):
+            acur = np.abs(cur)
+            cscale = acur.max(axis=0)
+        small_first = acur[0] <= tiny
+        if small_first.any():
             # Epsilon rule: a small positive number stands for the zero entry.
             cur = cur.copy()
-            cur[:, 0] = np.where(small_first, _EPSILON * scale, cur[:, 0])
+            cur[0] = np.where(small_first, _EPSILON * np.where(scale > 0, scale, 1.0), cur[0])
             used_eps |= small_first
-        first[:, i + 1] = cur[:, 0]
+            cscale = np.maximum(cscale, np.abs(cur[0]))
+        first[i + 1] = cur[0]
         if keep_rows:
-            rows.append(cur.copy())
+            rows.append(cur.T.copy())
         if i < n - 1:
-            new = np.zeros((V, width))
-            new[:, :-1] = (cur[:, :1] * prev[:, 1:] - prev[:, :1] * cur[:, 1:]) / cur[:, :1]
-            prev, cur = cur, new
-    return first, rows, zero_row, used_eps
+            new = np.zeros((width, V))
+            new[:-1] = prev[1:] - (prev[0] / cur[0]) * cur[1:]
+            prev, cur, scale = cur, new, cscale
+    return first.T, rows, zero_row, used_eps
 
 
 def _sign_changes(first: np.ndarray) -> np.ndarray:
