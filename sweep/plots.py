@@ -773,7 +773,7 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> tuple[str, str,
     known = query.parameter_names(ds)
     for p in (a, b):
         if p not in known:
-            close = difflib.get_close_matches(p, known, n=1)
+            close = difflib.get_close_matches(p, known, n=1, cutoff=0.5)
             hint = f"; did you mean '{close[0]}'?" if close else f"; parameters: {', '.join(known)}"
             raise InputError(f"plot 'plane': no parameter '{p}' in the result{hint}", field="params")
     if "grid" not in present:
