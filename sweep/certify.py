@@ -149,6 +149,14 @@ def kharitonov_pencils(
 # ---------------------------------------------------------------------------
 
 
+_REAL_RTOL = 1e-6  # |Im| / |z| below which a computed root of the crossing polynomial counts as real
+
+
+def _pow2(x: np.ndarray) -> np.ndarray:
+    """Nearest power of two (exact scaling factors)."""
+    return np.exp2(np.round(np.log2(x)))
+
+
 def _roots_stacked(c: np.ndarray) -> np.ndarray:
     """Roots of a stack of polynomials ``(V, d+1)`` via stacked companion matrices.
 
@@ -246,10 +254,31 @@ def _critical_gains_direct(
     reference gain is unstable.
     """
     D = np.asarray(D, dtype=float)
-    A = D
     Bp = sigma * _pad_front(np.asarray(N, dtype=float), D.shape[1])
-    V = A.shape[0]
-    lo, hi = float(gain_range[0]), float(gain_range[1])
+    V, w_ = D.shape
+    # Exact power-of-two scaling of s (geometric mean of the open-loop pole moduli) and of
+    # each polynomial: it changes neither the roots' half-plane nor the gains, and keeps
+    # badly scaled loops (coefficients from 1e-6 to 1e8) well conditioned.
+    n = w_ - 1
+    absd = np.abs(D)
+    powers = n - np.arange(w_)
+    low_idx = n - np.argmax((absd > 0)[:, ::-1], axis=1)
+    p_low = n - low_idx
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        gm = np.where(p_low < n, (absd[np.arange(V), low_idx] / absd[:, 0]) ** (1.0 / np.maximum(n - p_low, 1)), 1.0)
+        w0 = _pow2(np.where(np.isfinite(gm) & (gm > 0), gm, 1.0))
+        A = D * w0[:, None] ** powers
+        Bp = Bp * w0[:, None] ** powers
+        cA = _pow2(np.max(np.abs(A), axis=1))
+        cB = _pow2(np.max(np.abs(Bp), axis=1))
+    cA = np.where(np.isfinite(cA) & (cA > 0), cA, 1.0)
+    cB = np.where(np.isfinite(cB) & (cB > 0), cB, 1.0)
+    A = A / cA[:, None]
+    Bp = Bp / cB[:, None]
+    g_scale = cA / cB  # k = g_scale * k_scaled
+    lo_s = float(gain_range[0]) / g_scale
+    hi_s = float(gain_range[1]) / g_scale
+    ref_s = float(reference) / g_scale
     cands = []
     with np.errstate(divide="ignore", invalid="ignore"):
         cands.append(np.where(Bp[:, -1] != 0, -A[:, -1] / Bp[:, -1], np.nan)[:, None])
@@ -260,7 +289,7 @@ def _critical_gains_direct(
         if Q.shape[1] > 1:
             x = _roots_stacked(Q)
             xr = x.real
-            real = (np.abs(x.imag) <= 1e-7 * np.abs(x)) & (xr > 0)
+            real = (np.abs(x.imag) <= _REAL_RTOL * np.abs(x)) & (xr > 0)
             xr = np.where(real, xr, np.nan)
             w = np.sqrt(xr)
             jw = 1j * w
@@ -271,17 +300,17 @@ def _critical_gains_direct(
             k = np.where(den > 0, k, np.nan)
             cands.append(k)
     C = np.concatenate(cands, axis=1)
-    C = np.where((C > lo) & (C < hi) & np.isfinite(C), C, np.nan)
-    above = np.where(C > reference, C, np.inf).min(axis=1)
-    below = np.where(C <= reference, C, -np.inf).max(axis=1)
-    below = np.maximum(below, lo)
-    upper_end = np.minimum(above, hi)
+    C = np.where((C > lo_s[:, None]) & (C < hi_s[:, None]) & np.isfinite(C), C, np.nan)
+    above = np.where(C > ref_s[:, None], C, np.inf).min(axis=1)
+    below = np.where(C <= ref_s[:, None], C, -np.inf).max(axis=1)
+    below = np.maximum(below, lo_s)
+    upper_end = np.minimum(above, hi_s)
     # a test gain strictly inside the interval holding the reference (no boundary inside it)
     finite = np.isfinite(upper_end)
     mid = np.where(finite, 0.5 * (below + np.where(finite, upper_end, 0.0)), below + np.maximum(1.0, np.abs(below)))
     P = A + mid[:, None] * Bp
     ok = _stable(P)
-    crit = np.where(np.isfinite(above), above, np.inf)
+    crit = np.where(np.isfinite(above), above * g_scale, np.inf)
     return np.where(ok, crit, np.nan) if V else crit
 
 

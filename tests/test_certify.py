@@ -523,14 +523,35 @@ def test_certify_rejects_bad_rtol():
         certify(cfg, rtol=0.0)
 
 
-def test_lean_critical_gains_agree_with_analysis():
+BUCK_TOML = {
+    "Vin": "{ nominal = 12.0, tol = '10%' }",
+    "L": "{ nominal = 4.7e-6, tol = '20%' }",
+    "C": "{ nominal = 220e-6, tol = ['20%', '80%'] }",
+    "Resr": "{ nominal = 0.03, low = 0.01, high = 0.06 }",
+    "Rload": "{ nominal = 1.0, low = 0.5, high = 10.0 }",
+}
+
+
+@pytest.mark.parametrize(
+    "params, plant, loop_extra, ref",
+    [
+        (MOTOR_TOML, "transfer = 'Kt / (s*((J*s + B)*(L*s + R) + Kt^2))'",
+         "controller = '(s + 20)/(s + 200)'\nsensor = '1/(0.001*s + 1)'\noperating_gain = 500", 500.0),
+        # a badly scaled power-supply loop (coefficients from 1e-6 to 1e8)
+        (BUCK_TOML, "transfer = 'Vin * (1 + s*C*Resr) / (L*C*s^2 + s*(L/Rload + C*Resr) + 1) / 1.5'",
+         "controller = '(1 + s/2000) / (s * (1 + s/60000))'\nsensor = '0.2424'\noperating_gain = 500", 500.0),
+        (KILN_TOML, "transfer = 'K / ((T1*s + 1)*(T2*s + 1)*(T3*s + 1))'", "feedback = 'positive'", 0.0),
+    ],
+    ids=["motor", "buck", "kiln-positive"],
+)
+def test_lean_critical_gains_agree_with_analysis(params, plant, loop_extra, ref):
     # the lean routine used on the hot path must give analysis.analyze_stack's critical gain
-    cfg = _config(MOTOR_TOML, "transfer = 'Kt / (s*((J*s + B)*(L*s + R) + Kt^2))'",
-                  "controller = '(s + 20)/(s + 200)'\nsensor = '1/(0.001*s + 1)'\noperating_gain = 500")
+    cfg = _config(params, plant, loop_extra)
     rng = np.random.default_rng(5)
     V = 2000
     vals = {p.name: p.low + rng.random(V) * (p.high - p.low) for p in cfg.uncertain}
     N, D = loop.assemble(cfg, vals)
-    a = analysis.analyze_stack(N, D, sigma=1, gain_range=cfg.gain_range, operating_gain=500.0)["critical_gain"]
-    g = pencil_critical_gains(N, D, sigma=1, gain_range=cfg.gain_range, reference=500.0)
+    a = analysis.analyze_stack(N, D, sigma=cfg.sigma, gain_range=cfg.gain_range,
+                               operating_gain=cfg.operating_gain)["critical_gain"]
+    g = pencil_critical_gains(N, D, sigma=cfg.sigma, gain_range=cfg.gain_range, reference=ref)
     np.testing.assert_allclose(g, a, rtol=1e-9)
