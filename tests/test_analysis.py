@@ -482,3 +482,23 @@ def test_to_dict_is_json_ready():
                 "departure_angles_deg", "arrival_angles_deg"]:
         assert key in d
     assert d["departure_angles_deg"][0][0] == [-1.0, -2.0]
+
+
+def test_mixed_degree_batch_is_bitwise_independent():
+    # one variant whose numerator loses its leading coefficient must not change
+    # the other rows (the deficient-degree path only touches that variant)
+    N, D = _random_stack(21, 6)
+    N2 = N.copy()
+    N2[3, 0] = 0.0
+    a = analyze_stack(N, D, sigma=-1)
+    b = analyze_stack(N2, D, sigma=-1)
+    for k in a:
+        np.testing.assert_array_equal(np.delete(a[k], 3, axis=0), np.delete(b[k], 3, axis=0), err_msg=k)
+    # the deficient variant has one zero fewer (NaN padded)
+    assert np.sum(np.isnan(b["open_loop_zero_real"][3])) == 1
+
+
+def test_whole_family_on_axis_is_never_stable():
+    # 1/(s^2 + 1): P = s^2 + 1 + k has its roots on the axis for every k > -1
+    a = analyze([1], [1, 0, 1])
+    assert a.stable_intervals == [] and math.isnan(a.critical_gain)
