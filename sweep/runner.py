@@ -402,24 +402,24 @@ def _resume_command(config: Config, out: Path) -> str:
 # ---------------------------------------------------------------- execution
 
 
-def _iter_local(fn, config, todo, chunk, jobs) -> Iterator[tuple[int, xr.Dataset, float]]:
-    if jobs == 1 or len(todo) <= 1:
-        for i, vs, g, k in todo:
+def _iter_local(fn, config, tasks, n_tasks, jobs) -> Iterator[tuple[int, xr.Dataset, float]]:
+    if jobs == 1 or n_tasks <= 1:
+        for i, vs, g, k in tasks:
             yield _chunk_task(fn, config, i, vs, g, k)
         return
     import joblib
 
     par = joblib.Parallel(n_jobs=jobs, return_as="generator_unordered")
-    yield from par(joblib.delayed(_chunk_task)(fn, config, i, vs, g, k) for i, vs, g, k in todo)
+    yield from par(joblib.delayed(_chunk_task)(fn, config, i, vs, g, k) for i, vs, g, k in tasks)
 
 
-def _iter_dask(fn, config, todo, scheduler) -> Iterator[tuple[int, xr.Dataset, float]]:
+def _iter_dask(fn, config, tasks, scheduler) -> Iterator[tuple[int, xr.Dataset, float]]:
     from distributed import Client, as_completed
 
     client = Client(scheduler)  # as_completed finds its client as the default one
     futures = []
     try:
-        futures = [client.submit(_chunk_task, fn, config, i, vs, g, k, pure=False) for i, vs, g, k in todo]
+        futures = [client.submit(_chunk_task, fn, config, i, vs, g, k, pure=False) for i, vs, g, k in tasks]
         for fut in as_completed(futures):
             if fut.status == "error":
                 fut.result()  # re-raises the worker's own exception
@@ -511,17 +511,19 @@ def run(
                 except store.PartError as err:
                     log(f"chunk {i}: {err}; computing it again")
                     p.unlink()
-            todo.append((i, variants.slice(a, b), gains, mask[a:b]))
+            todo.append(i)
         log(f"chunks: {n_chunks} total, {n_chunks - len(todo)} valid on disk, {len(todo)} to compute")
 
         pause = _pause_hook("chunks", log)
         pause(0)
         fn = compute_chunk  # looked up now, so a replaced module attribute is used
-        bar = tqdm(total=variants.count, initial=done_variants, unit="variant", unit_scale=True,
+        bar = tqdm(total=variants.count, initial=done_variants, unit="variant",
                    disable=quiet, file=sys.stderr, desc="sweep", dynamic_ncols=True)
         written = 0
         try:
-            it = _iter_dask(fn, config, todo, scheduler) if scheduler else _iter_local(fn, config, todo, size, jobs)
+            # chunk arguments are cut lazily, so only the chunks in flight are copied
+            tasks = ((i, variants.slice(*ranges[i]), gains, mask[slice(*ranges[i])]) for i in todo)
+            it = _iter_dask(fn, config, tasks, scheduler) if scheduler else _iter_local(fn, config, tasks, len(todo), jobs)
             for i, ds, seconds in it:
                 a, b = ranges[i]
                 ds.attrs.update({"config_sha256": config.sha256, "variant_start": a, "variant_stop": b, "chunk": i})

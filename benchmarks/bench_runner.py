@@ -1,0 +1,113 @@
+"""Benchmarks of the runner: memory against sweep size, speed-up from parallel jobs.
+
+Run: ``python benchmarks/bench_runner.py [--base 2000] [--chunk 500]``.
+
+1. Peak resident memory of a whole ``run`` (sample, compute, write parts,
+   merge) for ``base`` and ``10 * base`` variants, each run in its own fresh
+   subprocess (``resource.getrusage(RUSAGE_CHILDREN).ru_maxrss`` of the
+   child). Target: the 10x run needs at most 1.5x the memory.
+2. Wall time of the same ``10 * base`` ... well, of a ``speed`` sized run
+   with ``jobs=1`` and ``jobs=2``, side by side. Target: ``-j 2`` at least
+   1.6x faster than ``-j 1`` (needs two free cores).
+
+Prints the figures and PASS/FAIL per target; exit status 0 either way (the
+numbers are for the report, not an assertion).
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+CONFIG = """\
+title = "Conveyor drive speed loop (benchmark)"
+
+[parameters]
+R  = {{ nominal = 1.2,    tol = "10%", units = "ohm" }}
+L  = {{ nominal = 3.0e-3, low = 2.5e-3, high = 3.6e-3, units = "H" }}
+J  = {{ nominal = 4.0e-4, tol = "15%", dist = "normal" }}
+B  = {{ nominal = 1.0e-3, tol = 2.0e-4 }}
+Kt = {{ nominal = 0.05,   tol = "5%" }}
+
+[plant]
+transfer = "Kt / (s*((J*s + B)*(L*s + R) + Kt^2))"
+
+[loop]
+controller = "(s + 20) / (s + 200)"
+gain_range = [0, inf]
+operating_gain = 10
+
+[sweep]
+designs = ["nominal", "corners", "lhs"]
+samples = {samples}
+seed = 1
+chunk_size = {chunk}
+
+[locus]
+points = {points}
+keep = "corners"
+"""
+
+CHILD = """
+import json, resource, sys, time
+from sweep import runner
+from sweep.config import load_config
+t0 = time.perf_counter()
+runner.run(load_config(sys.argv[1]), out=sys.argv[2], jobs=int(sys.argv[3]), quiet=True)
+dt = time.perf_counter() - t0
+print(json.dumps({"seconds": dt, "maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss}))
+"""
+
+
+def one_run(folder: Path, samples: int, chunk: int, points: int, jobs: int, tag: str) -> dict:
+    cfg = folder / f"{tag}.toml"
+    cfg.write_text(CONFIG.format(samples=samples, chunk=chunk, points=points))
+    out = folder / f"{tag}.nc"
+    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    t0 = time.perf_counter()
+    res = subprocess.run([sys.executable, "-c", CHILD, str(cfg), str(out), str(jobs)],
+                         capture_output=True, text=True, check=True)
+    wall = time.perf_counter() - t0
+    after = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    info = json.loads(res.stdout.strip().splitlines()[-1])
+    info["wall"] = wall
+    info["children_maxrss_kb"] = after if after > before else None  # max over children so far
+    info["size_mb"] = out.stat().st_size / 1e6
+    return info
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--base", type=int, default=2000, help="samples of the small memory run")
+    ap.add_argument("--chunk", type=int, default=500)
+    ap.add_argument("--points", type=int, default=60)
+    ap.add_argument("--speed", type=int, default=8000, help="samples of the speed runs")
+    args = ap.parse_args()
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        small = one_run(folder, args.base, args.chunk, args.points, 1, "small")
+        big = one_run(folder, 10 * args.base, args.chunk, args.points, 1, "big")
+        ratio = big["maxrss_kb"] / small["maxrss_kb"]
+        print(f"memory: {args.base + 9} variants -> peak RSS {small['maxrss_kb'] / 1024:.1f} MiB "
+              f"({small['seconds']:.1f} s, file {small['size_mb']:.2f} MB)")
+        print(f"memory: {10 * args.base + 9} variants -> peak RSS {big['maxrss_kb'] / 1024:.1f} MiB "
+              f"({big['seconds']:.1f} s, file {big['size_mb']:.2f} MB)")
+        print(f"memory ratio (10x variants): {ratio:.3f}  target <= 1.5  {'PASS' if ratio <= 1.5 else 'FAIL'}")
+
+        j1 = one_run(folder, args.speed, args.chunk, args.points, 1, "j1")
+        j2 = one_run(folder, args.speed, args.chunk, args.points, 2, "j2")
+        sp = j1["seconds"] / j2["seconds"]
+        print(f"speed: {args.speed + 9} variants, chunk {args.chunk}: -j 1 {j1['seconds']:.2f} s, "
+              f"-j 2 {j2['seconds']:.2f} s ({(args.speed + 9) / j2['seconds']:.0f} variants/s)")
+        print(f"speed-up -j 2 over -j 1: {sp:.2f}x  target >= 1.6  {'PASS' if sp >= 1.6 else 'FAIL'}"
+              f"  (cores: {os.cpu_count()}, load average {os.getloadavg()[0]:.2f})")
+
+
+if __name__ == "__main__":
+    main()
