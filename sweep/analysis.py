@@ -385,6 +385,11 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
             ill |= np.any(np.isfinite(ur.real) & (ur.real > 0)
                           & (rel_im > _SUSPECT[0]) & (rel_im < _SUSPECT[1]), axis=1)
             u = np.where(cand, ur.real, 1.0)
+            # two (nearly) equal real roots: a tangent touch of the axis, whose
+            # position carries only half the digits
+            du_ = np.abs(u[:, :, None] - u[:, None, :])
+            pair = cand[:, :, None] & cand[:, None, :] & ~np.eye(du, dtype=bool)[None]
+            ill |= np.any(pair & (du_ <= 1e-6 * np.abs(u[:, :, None])), axis=(1, 2))
             # one Newton step on F, only where it helps (derivative not tiny)
             Fd = _polyder(F)
             fu = _polyval(F, u)

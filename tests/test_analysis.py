@@ -502,3 +502,12 @@ def test_whole_family_on_axis_is_never_stable():
     # 1/(s^2 + 1): P = s^2 + 1 + k has its roots on the axis for every k > -1
     a = analyze([1], [1, 0, 1])
     assert a.stable_intervals == [] and math.isnan(a.critical_gain)
+
+
+def test_tangent_touch_is_flagged():
+    # s(s^2+s+1) + k(s^2+s+4): the Hurwitz condition p2 p1 - p0 = (k-1)^2 touches
+    # zero at k = 1, where P = (s+2)(s^2+2) (hand computation, from memory).
+    a = analyze([1, 1, 4], [1, 1, 1, 0])
+    assert a.ill_conditioned
+    assert a.critical_gain == pytest.approx(1.0, rel=1e-6)
+    assert a.crossing_frequency == pytest.approx(math.sqrt(2), rel=1e-6)
