@@ -529,7 +529,6 @@ def branch_and_bound(
     bound, status = _bounds(enclose, B_lo, B_hi, sigma, gain_range, reference)
     n_boxes = 1
     B_L = bound
-    where_fail: np.ndarray | None = None
 
     def open_lower() -> float:
         if B_L.size == 0:
@@ -543,7 +542,11 @@ def branch_and_bound(
         lower = open_lower()
         if progress is not None:
             progress(n_boxes, lower, best_val)
-        if B_L.size == 0 or best_val - lower <= rtol * abs(best_val) or lower == best_val:
+        # A box where nothing is proven (an enclosure unstable at the reference, or with a
+        # leading-coefficient interval holding 0) carries the reference gain only as a
+        # priority; it must be resolved before anything counts as certified.
+        unresolved = bool(np.any(status != OK))
+        if B_L.size == 0 or (not unresolved and (best_val - lower <= rtol * abs(best_val) or lower == best_val)):
             state = "certified"
             break
         if n_boxes >= max_boxes or time.perf_counter() - t0 > max_seconds:
@@ -553,27 +556,24 @@ def branch_and_bound(
         sel = np.argpartition(B_L, K - 1)[:K] if K < B_L.size else np.arange(B_L.size)
         rest = np.ones(B_L.size, bool)
         rest[sel] = False
-        s_lo, s_hi, s_L = B_lo[sel], B_hi[sel], B_L[sel]
+        s_lo, s_hi, s_L, s_st = B_lo[sel], B_hi[sel], B_L[sel], status[sel]
         # split along the widest side relative to the parameter's tolerance width
         rel = (s_hi - s_lo) / scale
         axis = np.argmax(rel, axis=1)
         if np.all(rel[np.arange(K), axis] < 1e-12):
-            # boxes are points: nothing more can be proven here
-            state = "stalled"
-            fs = status[sel]
-            if np.any(fs == DEGREE_FAILS):
-                where_fail = np.stack([s_lo[np.argmax(fs == DEGREE_FAILS)], s_hi[np.argmax(fs == DEGREE_FAILS)]])
+            state = "stalled"  # boxes are points: nothing more can be proven here
             break
         mid = 0.5 * (s_lo[np.arange(K), axis] + s_hi[np.arange(K), axis])
         c_lo = np.concatenate([s_lo, s_lo])
         c_hi = np.concatenate([s_hi, s_hi])
-        c_hi[np.arange(K), axis[np.arange(K)]] = mid
+        c_hi[np.arange(K), axis] = mid
         c_lo[K + np.arange(K), axis] = mid
         c_bound, c_status = _bounds(enclose, c_lo, c_hi, sigma, gain_range, reference)
         n_boxes += 2 * K
-        # a parent's bound holds for its children too
-        parent = np.concatenate([s_L, s_L])
-        c_bound = np.maximum(c_bound, parent)
+        # a parent's proven bound holds for its children too
+        p_ok = np.concatenate([s_st, s_st]) == OK
+        c_bound = np.where(p_ok, np.maximum(c_bound, np.concatenate([s_L, s_L])), c_bound)
+        c_status = np.where(p_ok, OK, c_status).astype(np.int8)
         bad = points(0.5 * (c_lo + c_hi))
         if bad is not None:
             return _Result(math.nan, math.nan, n_boxes, bad, "unstable_at_reference",
@@ -582,24 +582,24 @@ def branch_and_bound(
         B_hi = np.concatenate([B_hi[rest], c_hi])
         B_L = np.concatenate([B_L[rest], c_bound])
         status = np.concatenate([status[rest], c_status])
-        if np.any(status == DEGREE_FAILS):
-            i = int(np.argmax(status == DEGREE_FAILS))
-            rel_i = (B_hi[i] - B_lo[i]) / scale
-            if rel_i.max() < 1e-6:
-                where_fail = np.stack([B_lo[i], B_hi[i]])
-                state = "degree"
-                break
     lower = open_lower()
-    if state == "degree":
-        msg = "the leading coefficient of the characteristic polynomial can vanish at the reference gain"
-        return _Result(math.nan, best_val, n_boxes, best_x, "degree_invariance_fails", msg, where_fail)
     if state == "certified":
-        msg = "bounds within the requested tolerance"
-    elif state == "stalled":
-        msg = "boxes shrank to points without closing the gap"
-    else:
-        msg = "budget exhausted before the requested tolerance was reached"
-    return _Result(lower, best_val, n_boxes, best_x, state, msg, where_fail)
+        return _Result(lower, best_val, n_boxes, best_x, state, "bounds within the requested tolerance")
+    msg = ("boxes shrank to points without closing the gap" if state == "stalled"
+           else "budget exhausted before the requested tolerance was reached")
+    bad_st = status != OK
+    if bad_st.any():
+        # report the smallest unresolved box: where the proof fails
+        size = np.max((B_hi - B_lo) / scale, axis=1)
+        i = int(np.argmin(np.where(bad_st, size, np.inf)))
+        where_fail = np.stack([B_lo[i], B_hi[i]])
+        if status[i] == DEGREE_FAILS:
+            return _Result(lower, best_val, n_boxes, best_x, "degree_invariance_fails",
+                           f"{msg}; the leading coefficient of D + k*sigma*N at the reference gain "
+                           "is not proven to keep its sign", where_fail)
+        return _Result(lower, best_val, n_boxes, best_x, "reference_unproven",
+                       f"{msg}; stability at the reference gain is not proven", where_fail)
+    return _Result(lower, best_val, n_boxes, best_x, state, msg)
 
 
 _TINY = 1e-300
@@ -855,9 +855,11 @@ def certify(
         The ``certify --json`` fields ``method``, ``exact``, ``lower``,
         ``upper``, ``relative_gap``, ``boxes``, ``worst_parameters``
         ({name: value}) plus ``status`` ("exact", "certified", "budget",
-        "stalled", "unstable_at_reference", "degree_invariance_fails"),
-        ``message``, ``where`` (a parameter box {name: [low, high]} for a
-        degree failure, else None) and ``elapsed`` seconds.  ``inf`` means
+        "stalled", "unstable_at_reference", "degree_invariance_fails",
+        "reference_unproven" -- the last two: some sub-box could not be
+        proven stable at the reference gain, named in ``where``),
+        ``message``, ``where`` (a parameter box {name: [low, high]} where
+        the proof failed, else None) and ``elapsed`` seconds.  ``inf`` means
         no loss of stability within the gain range; NaN bounds go with an
         unstable-at-reference status.
     """

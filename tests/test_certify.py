@@ -555,3 +555,33 @@ def test_lean_critical_gains_agree_with_analysis(params, plant, loop_extra, ref)
                                operating_gain=cfg.operating_gain)["critical_gain"]
     g = pencil_critical_gains(N, D, sigma=cfg.sigma, gain_range=cfg.gain_range, reference=ref)
     np.testing.assert_allclose(g, a, rtol=1e-9)
+
+
+def _kiln_bb(enclose, ref=0.0, **kw):
+    low, high = KILN_NOM * (1 - KILN_TOL), KILN_NOM * (1 + KILN_TOL)
+    return branch_and_bound(enclose, point_fn(kiln_coefficients, ref=ref), low, high, sigma=1,
+                            gain_range=(0, INF), reference=ref, **kw)
+
+
+def test_unresolved_boxes_are_never_certified():
+    base = monotone_enclosure(kiln_coefficients)
+
+    def leading_holds_zero(lows, highs):  # a useless enclosure: the leading interval always holds 0
+        N_lo, N_hi, D_lo, D_hi = base(lows, highs)
+        D_lo = D_lo.copy()
+        D_lo[:, 0] = -1.0
+        return N_lo, N_hi, D_lo, D_hi
+
+    res = _kiln_bb(leading_holds_zero, max_boxes=300)
+    assert res.status == "degree_invariance_fails" and res.where is not None
+    assert res.lower == 0.0  # only the reference gain, nothing proven
+
+    def constant_negative(lows, highs):  # a useless enclosure: unstable members at every gain
+        N_lo, N_hi, D_lo, D_hi = base(lows, highs)
+        D_lo = D_lo.copy()
+        D_lo[:, -1] = -1e3
+        return N_lo, N_hi, D_lo, D_hi
+
+    # the worst critical gain is about 6.40 > reference 6.39: the gap is tiny, but nothing is proven
+    res = _kiln_bb(constant_negative, ref=6.39, rtol=0.01, max_boxes=300)
+    assert res.status == "reference_unproven" and res.where is not None
