@@ -162,9 +162,22 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
         return r + 1j * i
 
     poles, zeros = pts("open_loop_pole"), pts("open_loop_zero")
-    wc = np.asarray(ds["crossing_frequency"].values, float) if "crossing_frequency" in ds else np.array([])
+    # every crossing of the imaginary axis: all boundary frequencies when stored (this also
+    # covers variants unstable at the reference gain, whose crossing_frequency is NaN)
+    if "boundary_frequency" in ds:
+        wc = np.asarray(ds["boundary_frequency"].values, float).ravel()
+        crossing_what = "imaginary-axis crossings"
+    elif "crossing_frequency" in ds:
+        wc = np.asarray(ds["crossing_frequency"].values, float)
+        crossing_what = "axis crossings at the critical gain"
+    else:
+        wc, crossing_what = np.array([]), ""
     wc_f = wc[np.isfinite(wc) & (wc > 0)]
     origin_crossings = int(np.sum(wc == 0))
+    n_crossing_variants = int(np.sum(np.any(np.isfinite(np.asarray(
+        ds["boundary_frequency"].values, float)) & (np.asarray(ds["boundary_frequency"].values,
+                                                                float) > 0), axis=1))) \
+        if "boundary_frequency" in ds else int(wc_f.size)
 
     # --- the view: around the crossings and the slow open-loop poles/zeros
     pz = np.concatenate([poles.ravel(), zeros.ravel()]) if poles.size or zeros.size else np.zeros(0, complex)
@@ -275,7 +288,7 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
             Line2D([], [], marker="x", ls="none", color=GREY, label="open-loop poles (each variant)"),
             Line2D([], [], marker="o", ls="none", mfc="none", mec=GREY, label="open-loop zeros (each variant)"),
             Line2D([], [], marker="D", ls="none", mfc=VERMILLION, mec="white",
-                   label=f"axis crossing at the critical gain ({wc_f.size} variants)"),
+                   label=f"{crossing_what} ({n_crossing_variants} variants)"),
             Patch(fc=VERMILLION, alpha=0.15, label="right half plane (unstable)"),
         ]
         if has_nom_locus:
@@ -407,7 +420,8 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
                                   label=f"unstable at reference gain ({int(unstable.sum())})"))
         fig.legend(handles=handles, loc="lower center", ncol=min(len(handles), 4), frameon=False,
                    bbox_to_anchor=(0.5, 0.0))
-        _title(fig, ds, "Critical gain against each uncertain parameter"
+        _title(fig, ds, ("Critical gain against each uncertain parameter" if query.uncertain_names(ds)
+                         else "Critical gain against each parameter (none varies)")
                + (" (log scale)" if use_log else ""))
     return fig
 
