@@ -45,6 +45,7 @@ __all__ = [
     "branch_and_bound",
     "is_interval_family",
     "certify",
+    "format_certificate",
 ]
 
 # Which end each Kharitonov polynomial takes, by power of s modulo 4
@@ -876,49 +877,89 @@ def certify(
     def named(x):
         return None if x is None else {n: float(v) for n, v in zip(names, x)}
 
+    def result(method, lower, upper, boxes, worst, status, message, where=None):
+        # field order: the certify --json fields first, then the extras
+        return {
+            "method": method,
+            "exact": method == "kharitonov",
+            "lower": float(lower),
+            "upper": float(upper),
+            "relative_gap": _relative_gap(float(lower), float(upper)),
+            "boxes": int(boxes),
+            "worst_parameters": named(worst),
+            "status": status,
+            "message": message,
+            "where": where,
+            "elapsed": time.perf_counter() - t0,
+        }
+
+    unstable_msg = f"a point of the box is unstable at the reference gain {ref:g}"
     if is_interval_family(config):
         route = _kharitonov_route(config, names, enclose, point_gains, values, low, high, ref)
         if route is not None:
             bound, status, crit, corners = route
-            base = {"method": "kharitonov", "exact": True, "boxes": 1, "where": None}
             if status == DEGREE_FAILS:
-                return {**base, "lower": math.nan, "upper": math.nan, "relative_gap": math.nan,
-                        "worst_parameters": None, "status": "degree_invariance_fails",
-                        "message": "the leading coefficient can vanish inside the box at the reference gain",
-                        "elapsed": time.perf_counter() - t0}
+                box = {n: [float(a), float(b)] for n, a, b in zip(names, low, high)}
+                return result("kharitonov", math.nan, math.nan, 1, None, "degree_invariance_fails",
+                              "the leading coefficient of D + k*sigma*N can vanish inside the box "
+                              "at the reference gain", box)
             if status == UNSTABLE_AT_REFERENCE:
                 i = int(np.argmax(np.isnan(crit)))
-                return {**base, "lower": math.nan, "upper": math.nan, "relative_gap": math.nan,
-                        "worst_parameters": named(corners[i]), "status": "unstable_at_reference",
-                        "message": "a Kharitonov corner of the box is unstable at the reference gain",
-                        "elapsed": time.perf_counter() - t0}
-            i = int(np.argmin(crit))
+                return result("kharitonov", math.nan, math.nan, 1, corners[i], "unstable_at_reference",
+                              unstable_msg + " (a Kharitonov corner)")
             if progress is not None:
                 progress(1, float(bound), float(bound))
-            return {**base, "lower": float(bound), "upper": float(bound), "relative_gap": 0.0,
-                    "worst_parameters": named(corners[i]), "status": "exact",
-                    "message": "interval family: exact by Kharitonov's theorem",
-                    "elapsed": time.perf_counter() - t0}
+            i = int(np.argmin(crit))
+            return result("kharitonov", bound, bound, 1, corners[i], "exact",
+                          "interval family: exact by Kharitonov's theorem")
 
     res = branch_and_bound(
         enclose, point_gains, low, high, sigma=config.sigma, gain_range=gr, reference=ref,
         rtol=rtol, max_boxes=max_boxes, max_seconds=max_seconds, progress=progress,
     )
     where = None
-    msg = res.message
+    msg = unstable_msg if res.status == "unstable_at_reference" else res.message
     if res.where is not None:
         where = {n: [float(a), float(b)] for n, a, b in zip(names, res.where[0], res.where[1])}
         msg = f"{msg} near {where}"
-    return {
-        "method": "branch-and-bound",
-        "exact": False,
-        "lower": res.lower,
-        "upper": res.upper,
-        "relative_gap": _relative_gap(res.lower, res.upper),
-        "boxes": int(res.boxes),
-        "worst_parameters": named(res.worst),
-        "status": res.status,
-        "message": msg,
-        "where": where,
-        "elapsed": time.perf_counter() - t0,
-    }
+    return result("branch-and-bound", res.lower, res.upper, res.boxes, res.worst, res.status, msg, where)
+
+
+def format_certificate(result: dict[str, Any]) -> str:
+    """Plain-text form of a `certify` result (the CLI prints it).
+
+    Parameters
+    ----------
+    result
+        The dict returned by `certify`.
+
+    Returns
+    -------
+    str
+        A few lines: the bracket on the worst-case critical gain, how it was
+        obtained, and the worst parameter combination found.
+    """
+
+    def num(x):
+        if x is None or (isinstance(x, float) and math.isnan(x)):
+            return "undefined"
+        if math.isinf(x):
+            return "inf (no loss of stability within the gain range)" if x > 0 else "-inf"
+        return f"{x:.6g}"
+
+    lines = []
+    if result["status"] == "unstable_at_reference":
+        lines.append("worst-case critical gain: undefined (unstable at the reference gain)")
+    elif result["exact"]:
+        lines.append(f"worst-case critical gain: {num(result['lower'])} (exact)")
+    else:
+        lines.append(f"worst-case critical gain between {num(result['lower'])} and {num(result['upper'])}")
+        gap = result["relative_gap"]
+        if gap is not None and math.isfinite(gap):
+            lines.append(f"relative gap: {gap:.3g}")
+    lines.append(f"method: {result['method']}, {result['boxes']} boxes, {result['elapsed']:.2f} s")
+    lines.append(f"status: {result['status']}: {result['message']}")
+    if result.get("worst_parameters"):
+        worst = ", ".join(f"{k} = {v:.6g}" for k, v in result["worst_parameters"].items())
+        lines.append(f"worst parameters: {worst}")
+    return "\n".join(lines)
