@@ -197,14 +197,25 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
     if bp.size:
         scale_candidates.append(float(np.abs(bp).max()))
     # the crossings set the scale when there are any: they are where stability is lost
-    scale = float(wc_f.max()) if wc_f.size else (max(scale_candidates) if scale_candidates else 1.0)
+    # the crossings at the critical gains set the scale when there are any (that is where
+    # stability is lost); the 90th percentile, so a few far crossings do not shrink the rest
+    wcrit = (np.asarray(ds["crossing_frequency"].values, float) if "crossing_frequency" in ds
+             else np.array([]))
+    wcrit = wcrit[np.isfinite(wcrit) & (wcrit > 0)]
+    if wcrit.size:
+        scale = float(np.percentile(wcrit, 90))
+    elif wc_f.size:
+        scale = float(np.percentile(wc_f, 90))
+    else:
+        scale = max(scale_candidates) if scale_candidates else 1.0
     if not scale_candidates or scale <= 0:
         finite = np.abs(re[np.isfinite(re)])
         scale = float(np.median(finite)) if finite.size else 1.0
     reach = 4.0 * scale  # open-loop points beyond this are "outside the view"
     inside = pz[np.abs(pz) <= reach]
     xs = [0.0] + list(inside.real) + list(bp[np.abs(bp) <= reach])
-    ys = [0.0] + list(np.abs(inside.imag)) + list(wc_f)
+    ys = [0.0] + list(np.abs(inside.imag)) + list(wc_f[wc_f <= 1.5 * scale])
+    n_high = int(np.sum(wc_f > 1.5 * scale))
     y_half = 1.25 * max(max(ys), 0.25 * scale, 1e-12)
     x_lo = min(xs) - 0.15 * (max(xs) - min(xs) + y_half)
     x_hi = max(max(xs), 0.0) + 0.35 * y_half
@@ -260,6 +271,8 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
                     lo_, hi_ = arr.real.min(), arr.real.max()
                     span = f"{_fmt(lo_)}" if np.isclose(lo_, hi_, rtol=0.05) else f"{_fmt(lo_)} .. {_fmt(hi_)}"
                     notes.append(f"{label} outside the view: real part {span}")
+        if n_high:
+            notes.append(f"{n_high} axis crossing(s) above the view (up to {_fmt(float(wc_f.max()))} rad/s)")
         if origin_crossings:
             notes.append(f"{origin_crossings} variant(s) lose stability through s = 0")
 
@@ -276,6 +289,11 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
             y_half = have / (2 * box)
         ax.set_xlim(x_lo, x_hi)
         ax.set_ylim(-y_half, y_half)
+        if max(abs(x_lo), abs(x_hi), y_half) >= 1e4:  # 400k reads better than 4e5 with an offset
+            from matplotlib.ticker import EngFormatter
+
+            ax.xaxis.set_major_formatter(EngFormatter(sep=""))
+            ax.yaxis.set_major_formatter(EngFormatter(sep=""))
         ax.set_xlabel("real part [1/s]")
         ax.set_ylabel("imaginary part [rad/s]")
         if notes:
