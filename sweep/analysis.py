@@ -49,15 +49,13 @@ _SUSPECT = (1e-11, 1e-4)  # relative imaginary parts that hint at a near-double 
 
 def _u_degree(n: int, m: int) -> int:
     """Degree of F(u) with Im[D(jw) N(-jw)] = w F(w^2)."""
-    def deg(d):  # -1 for an absent part
-        return d
     do = (n - 1) // 2 if n >= 1 else -1
     de = n // 2
     ne = m // 2
     no = (m - 1) // 2 if m >= 1 else -1
     cand = []
     if do >= 0:
-        cand.append(deg(do) + ne)
+        cand.append(do + ne)
     if no >= 0:
         cand.append(de + no)
     return max(cand) if cand else 0
@@ -476,8 +474,6 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
     on_boundary = (np.any(valid & (np.abs(bg - ref) <= 1e-10 * abs(ref)), axis=1)
                    if k_op is not None else np.zeros(V, bool))
     stable_ref = np.take_along_axis(stable_iv, j[:, None], 1)[:, 0] & ~on_boundary
-    if k_op is None and not math.isfinite(lo):
-        pass  # -inf lower end: reference is the first interval, as above
     jj = np.minimum(j, W - 1) if W > 0 else j
     has_above = j < nvalid
     crit = np.where(has_above, np.take_along_axis(bg, jj[:, None], 1)[:, 0] if W else np.inf, np.inf)
@@ -526,7 +522,7 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
         bwid = breakaway_width(n, m)
         if bwid > 0:
             dN = _polyder(Ns)
-            R = _polymul(Nsp, dD) if False else _polymul(Ns, dD)
+            R = _polymul(Ns, dD)
             R2 = _polymul(dN, Ds) if m > 0 else np.zeros((V, 1))
             L = max(R.shape[1], R2.shape[1])
             Rr = _pad_left(R, L) - _pad_left(R2, L)
