@@ -396,7 +396,9 @@ def _part_path(parts: Path, i: int) -> Path:
 
 
 def _resume_command(config: Config, out: Path) -> str:
-    return f"sweep run {config.source} -o {out} --resume"
+    import shlex
+
+    return f"sweep run {shlex.quote(str(config.source))} -o {shlex.quote(str(out))} --resume"
 
 
 # ---------------------------------------------------------------- execution
