@@ -158,7 +158,7 @@ def _pow2(x: np.ndarray) -> np.ndarray:
     return np.exp2(np.round(np.log2(x)))
 
 
-def _roots_stacked(c: np.ndarray) -> np.ndarray:
+def _roots_stacked(c: np.ndarray, return_bad: bool = False):
     """Roots of a stack of polynomials ``(V, d+1)`` via stacked companion matrices.
 
     Rows whose leading coefficients are exactly zero are handled by grouping
@@ -168,8 +168,9 @@ def _roots_stacked(c: np.ndarray) -> np.ndarray:
     V, w = c.shape
     d = w - 1
     out = np.full((V, max(d, 0)), np.nan + 0j)
+    bad = np.zeros(V, dtype=bool)
     if d <= 0:
-        return out
+        return (out, bad) if return_bad else out
     nz = c != 0
     first = np.where(nz.any(axis=1), nz.argmax(axis=1), w)  # index of leading nonzero
     for f in np.unique(first):
@@ -177,21 +178,29 @@ def _roots_stacked(c: np.ndarray) -> np.ndarray:
         if deg <= 0:
             continue
         rows = np.nonzero(first == f)[0]
-        cc = c[rows, f:] / c[rows, f : f + 1]
+        with np.errstate(over="ignore", invalid="ignore"):
+            cc = c[rows, f:] / c[rows, f : f + 1]
+        finite = np.all(np.isfinite(cc), axis=1)
+        if not finite.all():
+            # unresolvable rows keep NaN roots and are flagged (callers treat them as unknown)
+            bad[rows[~finite]] = True
+            rows, cc = rows[finite], cc[finite]
+            if rows.size == 0:
+                continue
         comp = np.zeros((rows.size, deg, deg))
         comp[:, 0, :] = -cc[:, 1:]
         if deg > 1:
             idx = np.arange(deg - 1)
             comp[:, idx + 1, idx] = 1.0
         out[rows, :deg] = np.linalg.eigvals(comp)
-    return out
+    return (out, bad) if return_bad else out
 
 
 def _stable(P: np.ndarray) -> np.ndarray:
     """True where every root of the rows of ``P`` has a negative real part."""
-    r = _roots_stacked(P)
+    r, bad = _roots_stacked(P, return_bad=True)
     nd = P.shape[1] - 1
-    degree_ok = P[:, 0] != 0
+    degree_ok = (P[:, 0] != 0) & ~bad
     if nd == 0:
         return degree_ok
     re = np.where(np.isnan(r.real), -np.inf, r.real)
@@ -287,8 +296,13 @@ def _critical_gains_direct(
         ae, ao = _even_odd(A)
         be, bo = _even_odd(Bp)
         Q = _polysub(_polymul_stacked(ao, be), _polymul_stacked(ae, bo))
+        # Coefficients below their own rounding-error bound are cancellation noise: zero
+        # them, or a noisy leading coefficient puts a spurious root near infinity.
+        Qabs = _polysub(_polymul_stacked(np.abs(ao), np.abs(be)), -_polymul_stacked(np.abs(ae), np.abs(bo)))
+        Q = np.where(np.abs(Q) <= 8 * (n + 2) * np.finfo(float).eps * Qabs, 0.0, Q)
+        unresolved = np.zeros(V, dtype=bool)
         if Q.shape[1] > 1:
-            x = _roots_stacked(Q)
+            x, unresolved = _roots_stacked(Q, return_bad=True)
             xr = x.real
             real = (np.abs(x.imag) <= _REAL_RTOL * np.abs(x)) & (xr > 0)
             xr = np.where(real, xr, np.nan)
@@ -310,7 +324,7 @@ def _critical_gains_direct(
     finite = np.isfinite(upper_end)
     mid = np.where(finite, 0.5 * (below + np.where(finite, upper_end, 0.0)), below + np.maximum(1.0, np.abs(below)))
     P = A + mid[:, None] * Bp
-    ok = _stable(P)
+    ok = _stable(P) & ~unresolved  # an unresolved crossing polynomial proves nothing
     crit = np.where(np.isfinite(above), above * g_scale, np.inf)
     return np.where(ok, crit, np.nan) if V else crit
 
@@ -774,7 +788,17 @@ def _config_functions(config: Any):
 
     def point_gains(X: np.ndarray) -> np.ndarray:
         N, D = loop.assemble(config, values(X))
-        return pencil_critical_gains(N, D, sigma=config.sigma, gain_range=tuple(config.gain_range), reference=ref)
+        gr = tuple(config.gain_range)
+        g = pencil_critical_gains(N, D, sigma=config.sigma, gain_range=gr, reference=ref)
+        bad = np.isnan(g)
+        if bad.any():
+            # "unstable at the reference gain" ends the certification: confirm it with the
+            # full analysis before claiming it
+            from sweep import analysis
+
+            g[bad] = analysis.analyze_stack(N[bad], D[bad], sigma=config.sigma, gain_range=gr,
+                                            operating_gain=config.operating_gain)["critical_gain"]
+        return g
 
     return names, enclose, point_gains, values
 
