@@ -30,6 +30,7 @@ BLUE = "#0072B2"
 VERMILLION = "#D55E00"
 PURPLE = "#CC79A7"
 GREY = "#7f7f7f"
+REFERENCE = "#404040"  # reference-gain lines: neutral, never a design colour
 DESIGN_COLOURS = {"nominal": BLACK, "corners": ORANGE, "grid": GREEN, "random": SKY,
                   "lhs": BLUE, "sobol": PURPLE}
 
@@ -415,7 +416,7 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
                 ax.scatter([x[wi]], [yw], s=150, facecolor="none", edgecolor=VERMILLION, lw=2,
                            zorder=6, clip_on=False)
             if k_ref > 0 and y_bot < k_ref < y_top:
-                ax.axhline(k_ref, color=ORANGE, lw=1.2, ls="--", zorder=2)
+                ax.axhline(k_ref, color=REFERENCE, lw=1.2, ls="--", zorder=2)
             ax.set_xlabel(xlabel)
             ax.set_yscale("log" if use_log else "linear")
             ax.set_ylim(y_bot, y_top)
@@ -429,7 +430,7 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
         handles.append(Line2D([], [], marker="o", ls="none", mfc="none", mec=VERMILLION, mew=2, ms=11,
                               label="worst case"))
         if k_ref > 0 and y_bot < k_ref < y_top:
-            handles.append(Line2D([], [], color=ORANGE, ls="--", label=f"reference gain {_fmt(k_ref)}"))
+            handles.append(Line2D([], [], color=REFERENCE, ls="--", label=f"reference gain {_fmt(k_ref)}"))
         if np.isposinf(crit).any():
             handles.append(Line2D([], [], marker="^", ls="none", color=GREY,
                                   label=f"inf, drawn at top ({int(np.isposinf(crit).sum())})"))
@@ -479,7 +480,7 @@ def envelope_figure(ds: xr.Dataset, *, dpi: float | None = None):
     rgi = summary["robust_gain_interval"]
     with plt.rc_context(_STYLE):
         fig, ax = plt.subplots(figsize=(7.2, 4.6), dpi=dpi or 100)
-        fig.subplots_adjust(left=0.11, right=0.97, top=0.84, bottom=0.12)
+        fig.subplots_adjust(left=0.13, right=0.97, top=0.84, bottom=0.13)
         handles = []
         if rgi is not None:
             lo = max(rgi[0], g.min()) if g.size else rgi[0]
@@ -524,10 +525,13 @@ def envelope_figure(ds: xr.Dataset, *, dpi: float | None = None):
                     break
                 ticks += [t] if t <= y1 else []
                 ticks += [-t] if -t >= y0 else []
+            from matplotlib.ticker import EngFormatter
+
+            eng = EngFormatter(sep="")
             ax.set_yticks(sorted(ticks))
-            ax.set_yticklabels([f"{t:g}" for t in sorted(ticks)])
-            ax.text(0.995, 0.01, f"symmetric log scale, linear within ±{linthresh:.2g}",
-                    transform=ax.transAxes, ha="right", va="bottom", fontsize=7, color="#595959")
+            ax.set_yticklabels([eng(t) if abs(t) >= 1e4 else f"{t:g}" for t in sorted(ticks)])
+            ax.text(1.0, -0.1, f"y: symmetric log scale, linear within ±{linthresh:.2g}",
+                    transform=ax.transAxes, ha="right", va="top", fontsize=7, color="#595959")
         else:
             span = hi_y - lo_y if hi_y > lo_y else 1.0
             ax.set_ylim(lo_y - 0.05 * span, hi_y + 0.05 * span)
@@ -624,11 +628,11 @@ def crossings_figure(ds: xr.Dataset, *, dpi: float | None = None):
                            "reference gain, so no worst-case line")
         k_ref = summary["reference_gain"]
         if k_ref > 0:
-            axes[0].axvline(k_ref, color=ORANGE, lw=1.4, ls=":", zorder=4)
+            axes[0].axvline(k_ref, color=REFERENCE, lw=1.4, ls=":", zorder=4)
         handles = [Line2D([], [], color=VERMILLION, lw=1.8, label="worst case"),
                    Line2D([], [], color=BLACK, lw=1.8, ls="--", label="nominal")]
         if k_ref > 0:
-            handles.append(Line2D([], [], color=ORANGE, lw=1.4, ls=":", label="reference gain"))
+            handles.append(Line2D([], [], color=REFERENCE, lw=1.4, ls=":", label="reference gain"))
         fig.legend(handles=handles, loc="lower right", ncol=len(handles), frameon=False,
                    bbox_to_anchor=(0.99, 0.06))
         fig.text(0.01, 0.015, "\n".join(["; ".join(msg[:2])] + msg[2:]), fontsize=8,
