@@ -23,6 +23,23 @@ aligned by power, not by array index.  Gains ``k`` are those of
 ``P(s, k) = D(s) + sigma k N(s)`` with ``k`` in ``gain_range``; certification
 needs a reference gain ``>= 0`` (the pencil construction holds for ``k >= 0``).
 
+Soundness caveats (what "guaranteed" rests on):
+
+* The coefficient enclosures come from `sweep.loop.enclose` (outward-rounded
+  interval arithmetic); the Kharitonov pencils themselves are then analysed in
+  ordinary floating point (eigenvalues of companion matrices after exact
+  power-of-two scaling), so a pencil's critical gain carries the usual
+  relative rounding error of a root computation, not a rigorous enclosure.
+  Double real roots of the crossing polynomial are accepted as real up to a
+  relative imaginary part of 1e-6; higher-multiplicity tangencies could be
+  missed.
+* A coefficient enclosed within +-1e-300 over the whole box is taken as
+  exactly zero (a literal 0 such as an integrator's ``D(0)``; outward rounding
+  would otherwise make the family look unstable just above ``k = 0``).
+* A sub-box whose enclosure is not proven stable at the reference gain (or
+  whose leading-coefficient interval holds 0) proves nothing; certification
+  never ends while such a box is open, and the box is reported.
+
 Everything here is pure computation; the CLI does the printing.
 """
 from __future__ import annotations
@@ -507,6 +524,13 @@ def branch_and_bound(
     if p <= 10:
         corners = np.array(list(itertools.product((0.0, 1.0), repeat=p))) if p else np.zeros((1, 0))
         start.append(low + corners * (high - low))
+    else:
+        # too many corners: the two ends of each parameter and a fixed pseudo-random set
+        ends = np.repeat(centre[None], 2 * p, axis=0)
+        ends[np.arange(p), np.arange(p)] = low
+        ends[p + np.arange(p), np.arange(p)] = high
+        rng = np.random.default_rng(0)
+        start += [ends, low + rng.integers(0, 2, size=(256, p)) * (high - low)]
     X0 = np.concatenate(start)
     g0 = point_gains(X0)
     if np.isnan(g0).any():

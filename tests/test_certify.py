@@ -639,3 +639,22 @@ def test_format_certificate_lines():
     res = certify(_conveyor_config(), rtol=0.05)
     text = format_certificate(res)
     assert "between" in text and "worst parameters" in text and "J = " in text
+
+
+def test_many_parameters_start_without_corners():
+    # 12 parameters (too many corners to start from): D = (s + 1)(s + a)(s + b) with a, b sums of
+    # six parameters each; Routh for s^3 + a2 s^2 + a1 s + a0 + k (from memory): k* = a2 a1 - a0 =
+    # (a + b + 1)(ab + a + b) - ab, increasing in a and b, so the worst case is the low corner
+    def coeffs(P):
+        a = P[..., :6].sum(-1)
+        b = P[..., 6:].sum(-1)
+        one = np.ones_like(a)
+        return np.stack([one], -1), np.stack([one, a + b + 1, a * b + a + b, a * b], -1)
+
+    low, high = np.full(12, 0.5), np.full(12, 1.0)
+    res = branch_and_bound(monotone_enclosure(coeffs), point_fn(coeffs), low, high, sigma=1,
+                           gain_range=(0, INF), reference=0.0, rtol=0.05, max_seconds=20)
+    a = b = 3.0
+    exact = (a + b + 1) * (a * b + a + b) - a * b
+    assert res.status == "certified"
+    assert res.lower <= exact * (1 + 1e-12) and res.upper == pytest.approx(exact, rel=1e-9)
