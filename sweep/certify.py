@@ -597,6 +597,9 @@ def branch_and_bound(
         rest[sel] = False
         s_lo, s_hi, s_L, s_st = B_lo[sel], B_hi[sel], B_L[sel], status[sel]
         # split along the widest side relative to the parameter's tolerance width
+        if p == 0:
+            state = "stalled"  # a single point: nothing to split
+            break
         rel = (s_hi - s_lo) / scale
         axis = np.argmax(rel, axis=1)
         if np.all(rel[np.arange(K), axis] < 1e-12):

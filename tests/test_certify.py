@@ -658,3 +658,14 @@ def test_many_parameters_start_without_corners():
     exact = (a + b + 1) * (a * b + a + b) - a * b
     assert res.status == "certified"
     assert res.lower <= exact * (1 + 1e-12) and res.upper == pytest.approx(exact, rel=1e-9)
+
+
+def test_no_uncertain_parameters():
+    # 2 / (s + 1)^3: critical gain 8 / 2 = 4 (Routh, from memory)
+    cfg = _config({"K": "{ nominal = 2.0, dist = 'fixed' }"}, "transfer = 'K / (s + 1)^3'")
+    res = certify(cfg)
+    assert res["lower"] <= 4.0 <= res["upper"] and res["upper"] == pytest.approx(4.0, rel=1e-12)
+    assert res["worst_parameters"] == {}
+    cfg = _config({"K": "{ nominal = 2.0, dist = 'fixed' }"}, "num = ['K']\nden = [1, 3, 3, 1]")
+    res = certify(cfg)
+    assert res["method"] == "kharitonov" and res["lower"] == pytest.approx(4.0, rel=1e-12)
