@@ -334,19 +334,24 @@ def _match(pred: np.ndarray, roots: np.ndarray) -> np.ndarray:
 
 def _horner(c: np.ndarray, z: np.ndarray) -> np.ndarray:
     """p(z) for coefficient stack c (B, w) at points z (B, n)."""
-    p = np.broadcast_to(c[:, :1], z.shape).astype(np.complex128)
+    p = np.empty(z.shape, dtype=np.result_type(c, z))
+    p[...] = c[:, :1]
     for i in range(1, c.shape[1]):
-        p = p * z + c[:, i:i + 1]
+        p *= z
+        p += c[:, i:i + 1]
     return p
 
 
 def _horner_d(c: np.ndarray, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """p(z) and p'(z) for coefficient stack c (B, w) at points z (B, n)."""
-    p = np.broadcast_to(c[:, :1], z.shape).astype(np.complex128)
+    p = np.empty(z.shape, dtype=np.complex128)
+    p[...] = c[:, :1]
     dp = np.zeros_like(p)
     for i in range(1, c.shape[1]):
-        dp = dp * z + p
-        p = p * z + c[:, i:i + 1]
+        dp *= z
+        dp += p
+        p *= z
+        p += c[:, i:i + 1]
     return p, dp
 
 
@@ -389,7 +394,8 @@ def trace(N, D, *, sigma: int, gains, method: str = "continuation",
     stats
         Optional dict that receives counters of the fall-back paths taken
         (``"fallback_variant_steps"``, ``"not_converged"``,
-        ``"not_separated"``, ``"degree_drop"``, ``"steps"``).
+        ``"not_separated"``, ``"degree_drop"``, ``"steps"``,
+        ``"newton_variant_iterations"``).
 
     Returns
     -------
@@ -422,7 +428,7 @@ def trace(N, D, *, sigma: int, gains, method: str = "continuation",
     if n == 0 or V == 0:
         return out
     st = {"steps": 0, "fallback_variant_steps": 0, "not_converged": 0,
-          "not_separated": 0, "degree_drop": 0}
+          "not_separated": 0, "degree_drop": 0, "newton_variant_iterations": 0}
 
     poles = _open_loop_poles(D)
     # gain 0 -> first grid gain: match the roots to the open-loop poles
@@ -432,8 +438,16 @@ def trace(N, D, *, sigma: int, gains, method: str = "continuation",
     st["degree_drop"] += int(np.count_nonzero(nz0))
 
     Np_ = N  # padded numerator
+    lead_n = np.any(N[:, 0] != 0)  # only then can the degree of P drop
+    nzcol = np.flatnonzero(np.any(N != 0, axis=0))
+    first_nz = int(nzcol[0]) if nzcol.size else N.shape[1] - 1
     # velocities ds/dk at the previous gain, for the predictor
     vel = _velocity(Np_, D, sg, g[0], out[:, 0])
+    if method == "continuation":
+        _continue(N, D, sg, g, poles, out, vel, lead_n, first_nz, st)
+        if stats is not None:
+            stats.update(st)
+        return out
     prev2, k2 = poles, 0.0
     prev1, k1 = out[:, 0], g[0]
     for gi in range(1, G):
@@ -441,14 +455,11 @@ def trace(N, D, *, sigma: int, gains, method: str = "continuation",
         st["steps"] += 1
         pred = _predict(prev2, k2, prev1, k1, vel, k)
         P = _char_poly(Np_, D, sg, k)
-        nz = _lead_zeros(P, Np_, D, sg, k)
-        if method == "eig":
-            new = _match(_safe_pred(pred, prev1), _roots_eig(P, nz))
-            st["degree_drop"] += int(np.count_nonzero(nz))
-        else:
-            new = _continuation_step(P, nz, pred, prev1, st)
-        out[:, gi] = new
+        nz = _lead_zeros(P, Np_, D, sg, k) if lead_n else np.zeros(V, dtype=np.int64)
+        new = _match(_safe_pred(pred, prev1), _roots_eig(P, nz))
+        st["degree_drop"] += int(np.count_nonzero(nz))
         vel = _velocity(Np_, D, sg, k, new)
+        out[:, gi] = new
         prev2, k2, prev1, k1 = prev1, k1, new, k
     if stats is not None:
         stats.update(st)
@@ -476,8 +487,10 @@ def _predict(z0, k0, z1, k1, v1, k) -> np.ndarray:
         c = (z0 - z1 + v1 * h0) / (h0 * h0)
         p2 = z1 + h * (v1 + c * h)
         p1 = z1 + h * v1
-    p = np.where(np.isfinite(p2), p2, np.where(np.isfinite(p1), p1, z1))
-    return p
+    bad = ~np.isfinite(p2)
+    if bad.any():
+        p2[bad] = np.where(np.isfinite(p1[bad]), p1[bad], z1[bad])
+    return p2
 
 
 def _safe_pred(pred: np.ndarray, prev: np.ndarray) -> np.ndarray:
@@ -505,69 +518,162 @@ def _safe_pred(pred: np.ndarray, prev: np.ndarray) -> np.ndarray:
 # Newton settings: accept when the estimated error is below _NEWTON_RTOL x the variant's root scale.
 _NEWTON_RTOL = 1e-12
 _NEWTON_MAXIT = 6
-_DOMINANCE = 0.5
+# a Newton correction must stay under this fraction of the distance to the nearest other
+# prediction (1/3 makes each root the nearest to its own prediction by a factor 2)
+_DOMINANCE = 1.0 / 3.0
 
 
-def _continuation_step(P, nz, pred, prev, st) -> np.ndarray:
-    """Newton from the prediction for all variants; eigenvalue fall back where in doubt."""
-    V, n = pred.shape
+def _horner_t(c: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """p(z) in the transposed layout: coefficients c (w, B), points z (n, B)."""
+    p = np.empty(z.shape, dtype=np.result_type(c, z))
+    p[...] = c[0]
+    for i in range(1, c.shape[0]):
+        p *= z
+        p += c[i]
+    return p
+
+
+def _newton_t(c: np.ndarray, z: np.ndarray):
+    """One Newton step in place on z (n, B) for coefficients c (w, B).
+
+    Returns ``(|step|, P'(z) before the step)``.
+    """
+    p = np.empty(z.shape, dtype=np.complex128)
+    p[...] = c[0]
+    dp = np.zeros_like(p)
+    for i in range(1, c.shape[0]):
+        dp *= z
+        dp += p
+        p *= z
+        p += c[i]
+    p /= dp
+    z -= p
+    return np.abs(p), dp
+
+
+def _continue(N, D, sg, g, poles, out, vel, lead_n, first_nz, st) -> None:
+    """Predictor-corrector continuation over the grid, filling out[:, 1:].
+
+    Works in the transposed layout (roots ``(n, V)``, coefficients ``(w, V)``)
+    so that every elementwise operation and every reduction over the roots
+    of a variant runs along long contiguous rows.
+    """
+    V, w = D.shape
+    NT = np.ascontiguousarray(N.T)
+    DT = np.ascontiguousarray(D.T)
+    NTz = NT[first_nz:]
+    prev2, k2 = np.ascontiguousarray(poles.T), 0.0
+    prev1, k1 = np.ascontiguousarray(out[:, 0].T), g[0]
+    velT = np.ascontiguousarray(vel.T)
+    no_drop = np.zeros(V, dtype=np.int64)
+    for gi in range(1, g.size):
+        k = g[gi]
+        st["steps"] += 1
+        pred = _predict(prev2, k2, prev1, k1, velT, k)
+        PT = DT + (sg * k) * NT
+        nz = _lead_zeros(PT.T, N, D, sg, k) if lead_n else no_drop
+        new, dp = _continuation_step_t(PT, nz, pred, prev1, st)
+        with np.errstate(all="ignore"):
+            # the last Newton derivative is P' at the root to first order: enough for a predictor
+            velT = _horner_t(NTz, new)
+            velT *= -sg
+            velT /= dp
+        redo = np.flatnonzero(~np.isfinite(velT).all(axis=0))
+        if redo.size:
+            velT[:, redo] = _velocity(N[redo], D[redo], sg, k, new[:, redo].T).T
+        out[:, gi] = new.T
+        prev2, k2, prev1, k1 = prev1, k1, new, k
+
+
+def _continuation_step_t(P, nz, pred, prev, st):
+    """Newton from the prediction for all variants; eigenvalue fall back where in doubt.
+
+    Transposed layout: ``P`` (w, V), ``pred``/``prev`` (n, V).  Returns the
+    roots (n, V) and P' at (nearly) the roots, NaN where unknown.
+    """
+    n, V = pred.shape
     z = pred.copy()
-    ok = (nz == 0) & np.all(np.isfinite(pred), axis=1) & np.all(np.isfinite(prev), axis=1)
-    st["degree_drop"] += int(np.count_nonzero(nz))
-    active = np.flatnonzero(ok)
-    done = np.zeros(V, dtype=bool)
-    scale = np.max(np.abs(np.where(np.isfinite(prev), prev, 0)), axis=1)
-    scale = np.maximum(scale, np.max(np.abs(np.where(np.isfinite(pred), pred, 0)), axis=1))
-    scale = np.where(scale > 0, scale, 1.0)
-    last = np.full((V, n), np.inf)
-    absP = np.abs(P)
+    st.setdefault("newton_variant_iterations", 0)
     with np.errstate(all="ignore"):
-        for it in range(_NEWTON_MAXIT):
+        ok = np.isfinite(pred).all(axis=0)
+        if nz.any():
+            st["degree_drop"] += int(np.count_nonzero(nz))
+            ok &= nz == 0
+        # root scale of each variant (max-norm is enough for a relative tolerance)
+        sc = np.maximum(np.abs(pred.real).max(axis=0), np.abs(pred.imag).max(axis=0))
+        sc = np.where(sc > 0, sc, 1.0) * _NEWTON_RTOL
+        done = np.zeros(V, dtype=bool)
+        dp = np.full((n, V), np.nan + 0j)
+        active = np.flatnonzero(ok)
+        maxit = _NEWTON_MAXIT
+        if maxit >= 2 and active.size == V:
+            # two steps on everything: a good prediction converges in two
+            a1, _ = _newton_t(P, z)
+            a2, dp = _newton_t(P, z)
+            st["newton_variant_iterations"] += 2 * V
+            r = a2 / a1
+            conv = ((a2 <= sc) | ((r < 0.5) & (a2 * r <= sc * (1 - r)))).all(axis=0)
+            conv &= np.isfinite(z).all(axis=0)
+            done = conv
+            active = np.flatnonzero(~conv)
+            last = a2[:, active]
+            it0 = 2
+        else:
+            last = np.full((n, active.size), np.inf)
+            it0 = 0
+        # further steps only on the variants that still need them
+        for _ in range(it0, maxit):
             if active.size == 0:
                 break
-            st["newton_variant_iterations"] = st.get("newton_variant_iterations", 0) + int(active.size)
-            za = z[active]
-            p, dp = _horner_d(P[active], za)
-            # running rounding bound of the evaluation: a residual below it cannot improve
-            noise = _horner(absP[active], np.abs(za)).real
-            step = p / dp
-            at_noise = np.abs(p) <= 64 * _EPS * noise
-            za = za - step
-            z[active] = za
-            a = np.abs(step)
-            sc = scale[active][:, None]
-            prev_a = last[active]
-            r = a / prev_a
-            # converged: tiny step, a residual at rounding level, or a contracting
-            # step whose geometric tail is tiny
-            conv_root = (a <= _NEWTON_RTOL * sc) | at_noise | (
-                np.isfinite(prev_a) & (r < 0.5) & (a * r / (1 - r) <= _NEWTON_RTOL * sc))
-            last[active] = a
-            bad = ~np.all(np.isfinite(za), axis=1)
-            conv = np.all(conv_root, axis=1) & ~bad
+            st["newton_variant_iterations"] += int(active.size)
+            za = z[:, active]
+            a, dpa = _newton_t(P[:, active], za)
+            z[:, active] = za
+            dp[:, active] = dpa
+            r = a / last
+            s_a = sc[active]
+            conv_root = (a <= s_a) | (np.isfinite(last) & (r < 0.5) & (a * r <= s_a * (1 - r)))
+            fin = np.isfinite(za).all(axis=0)
+            conv = conv_root.all(axis=0) & fin
             done[active[conv]] = True
-            active = active[~conv & ~bad]
-    not_conv = ok & ~done
-    st["not_converged"] += int(np.count_nonzero(not_conv))
+            keep = ~conv & fin
+            active = active[keep]
+            last = a[:, keep]
+        # a residual already at the rounding level of the evaluation cannot improve
+        left = np.flatnonzero(ok & ~done)
+        if left.size:
+            zl = z[:, left]
+            Pl = P[:, left]
+            p = _horner_t(Pl, zl)
+            noise = _horner_t(np.abs(Pl), np.abs(zl)).real
+            at_noise = (np.abs(p) <= 64 * _EPS * noise).all(axis=0) & np.isfinite(zl).all(axis=0)
+            done[left[at_noise]] = True
     good = ok & done
-    # separation: each corrected root must be clearly the nearest to its own prediction
-    gi = np.flatnonzero(good)
-    if gi.size and n > 1:
-        zg = z[gi]
-        pg = pred[gi]
-        d = np.abs(zg[:, None, :] - pg[:, :, None])  # d[b, i, j] = |z_j - pred_i|
-        diag = d[:, np.arange(n), np.arange(n)].copy()
-        d[:, np.arange(n), np.arange(n)] = np.inf
-        rowmin = d.min(axis=2)  # other roots vs prediction i
-        colmin = d.min(axis=1)  # root j vs other predictions
-        sep_ok = np.all(diag < _DOMINANCE * rowmin, axis=1) & np.all(diag < _DOMINANCE * colmin, axis=1)
-        st["not_separated"] += int(np.count_nonzero(~sep_ok))
-        good[gi[~sep_ok]] = False
+    st["not_converged"] += int(np.count_nonzero(ok & ~done))
+    if n > 1:
+        # separation: every correction must stay under _DOMINANCE (1/3) of the distance from
+        # its prediction to the nearest other prediction, so each corrected root is the
+        # nearest to its own prediction by a factor 2 and no two roots coincide
+        dz = z - pred
+        e2 = dz.real * dz.real
+        e2 += dz.imag * dz.imag
+        d = pred[:, None, :] - pred[None, :, :]
+        d2 = d.real * d.real
+        d2 += d.imag * d.imag
+        ar = np.arange(n)
+        d2[ar, ar] = np.inf
+        sep2 = d2.min(axis=1)
+        with np.errstate(invalid="ignore"):
+            sep_ok = (e2 < (_DOMINANCE * _DOMINANCE) * sep2).all(axis=0)
+        st["not_separated"] += int(np.count_nonzero(good & ~sep_ok))
+        good &= sep_ok
     fb = np.flatnonzero(~good)
     if fb.size:
         st["fallback_variant_steps"] += int(fb.size)
-        z[fb] = _match(_safe_pred(pred[fb], prev[fb]), _roots_eig(P[fb], nz[fb]))
-    return z
+        z[:, fb] = _match(_safe_pred(pred[:, fb].T, prev[:, fb].T),
+                          _roots_eig(np.ascontiguousarray(P[:, fb].T), nz[fb])).T
+        dp[:, fb] = np.nan
+    return z, dp
 
 
 # --------------------------------------------------------------------------- envelope

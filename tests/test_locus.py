@@ -264,6 +264,7 @@ def test_fallback_not_separated_and_not_converged_paths(monkeypatch):
     # force both checks to fail everywhere: the result must be the eigenvalue trace
     N, D, sigma, g = stack("degree_10")
     monkeypatch.setattr(locus, "_NEWTON_MAXIT", 0)
+    monkeypatch.setattr(locus, "_EPS", 0.0)  # no acceptance of a prediction at rounding level
     st = {}
     r = trace(N, D, sigma=sigma, gains=g, stats=st)
     assert st["not_converged"] == g.size - 1
