@@ -585,7 +585,8 @@ def branch_and_bound(
         # leading-coefficient interval holding 0) carries the reference gain only as a
         # priority; it must be resolved before anything counts as certified.
         unresolved = bool(np.any(status != OK))
-        if B_L.size == 0 or (not unresolved and (best_val - lower <= rtol * abs(best_val) or lower == best_val)):
+        close = lower == best_val or (math.isfinite(best_val) and best_val - lower <= rtol * abs(best_val))
+        if B_L.size == 0 or (not unresolved and close):
             state = "certified"
             break
         if n_boxes >= max_boxes or time.perf_counter() - t0 > max_seconds:

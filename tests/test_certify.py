@@ -669,3 +669,23 @@ def test_no_uncertain_parameters():
     cfg = _config({"K": "{ nominal = 2.0, dist = 'fixed' }"}, "num = ['K']\nden = [1, 3, 3, 1]")
     res = certify(cfg)
     assert res["method"] == "kharitonov" and res["lower"] == pytest.approx(4.0, rel=1e-12)
+
+
+def test_infinite_upper_with_finite_lower_is_not_certified():
+    # every point is stable for all gains, but a loose enclosure cannot prove it: the result
+    # must stay open (upper inf, lower finite), never "certified"
+    def coeffs(P):
+        a = P[..., 0]
+        return np.stack([a], -1), np.stack([np.ones_like(a), 2 * a], -1)
+
+    def loose(lows, highs):  # not an enclosure: a third-order stand-in that loses stability
+        B = lows.shape[0]
+        one = np.ones(B)
+        D_lo = np.stack([one, 3 * one, 3 * one, 2 * lows[:, 0]], 1)
+        D_hi = np.stack([one, 3 * one, 3 * one, 2 * highs[:, 0]], 1)
+        return lows[:, :1], highs[:, :1], D_lo, D_hi
+
+    res = branch_and_bound(loose, point_fn(coeffs), np.array([1.0]), np.array([2.0]), sigma=1,
+                           gain_range=(0, INF), reference=0.0, max_boxes=200)
+    assert res.upper == INF and math.isfinite(res.lower)
+    assert res.status == "budget"
