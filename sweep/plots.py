@@ -216,7 +216,6 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
     inside = pz[np.abs(pz) <= reach]
     xs = [0.0] + list(inside.real) + list(bp[np.abs(bp) <= reach])
     ys = [0.0] + list(np.abs(inside.imag)) + list(wc_f[wc_f <= 1.5 * scale])
-    n_high = int(np.sum(wc_f > 1.5 * scale))
     y_half = 1.25 * max(max(ys), 0.25 * scale, 1e-12)
     x_lo = min(xs) - 0.15 * (max(xs) - min(xs) + y_half)
     x_hi = max(max(xs), 0.0) + 0.35 * y_half
@@ -261,22 +260,6 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
             ax.plot(np.zeros(2 * wc_f.size), np.concatenate([wc_f, -wc_f]), "D", ms=4,
                     mfc=VERMILLION, mec="white", mew=0.4, zorder=7)
 
-        # open-loop points outside the view: say where they are
-        far = pz[np.abs(pz) > reach]
-        notes = []
-        if far.size:
-            fp = far[np.isin(far, poles.ravel())]
-            fz = far[np.isin(far, zeros.ravel())]
-            for label, arr in (("poles", fp), ("zeros", fz)):
-                if arr.size:
-                    lo_, hi_ = arr.real.min(), arr.real.max()
-                    span = f"{_fmt(lo_)}" if np.isclose(lo_, hi_, rtol=0.05) else f"{_fmt(lo_)} .. {_fmt(hi_)}"
-                    notes.append(f"{label} outside the view: real part {span}")
-        if n_high:
-            notes.append(f"{n_high} axis crossing(s) above the view (up to {_fmt(float(wc_f.max()))} rad/s)")
-        if origin_crossings:
-            notes.append(f"{origin_crossings} variant(s) lose stability through s = 0")
-
         # equal scales on both axes by widening the shorter side to the box's shape,
         # unless that would squash the view by more than 3x (then scales differ)
         bbox = ax.get_position()
@@ -290,6 +273,23 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
             y_half = have / (2 * box)
         ax.set_xlim(x_lo, x_hi)
         ax.set_ylim(-y_half, y_half)
+        # open-loop points outside the view: say where they are
+        far = pz[(pz.real < x_lo) | (pz.real > x_hi) | (np.abs(pz.imag) > y_half)]
+        notes = []
+        if far.size:
+            fp = far[np.isin(far, poles.ravel())]
+            fz = far[np.isin(far, zeros.ravel())]
+            for label, arr in (("poles", fp), ("zeros", fz)):
+                if arr.size:
+                    lo_, hi_ = arr.real.min(), arr.real.max()
+                    span = f"{_fmt(lo_)}" if np.isclose(lo_, hi_, rtol=0.05) else f"{_fmt(lo_)} .. {_fmt(hi_)}"
+                    notes.append(f"{label} outside the view: real part {span}")
+        n_high = int(np.sum(wc_f > y_half))
+        if n_high:
+            notes.append(f"{n_high} axis crossing(s) beyond the view (|w| up to {_fmt(float(wc_f.max()))} rad/s)")
+        if origin_crossings:
+            notes.append(f"{origin_crossings} variant(s) lose stability through s = 0")
+
         if max(abs(x_lo), abs(x_hi), y_half) >= 1e4:  # 400k reads better than 4e5 with an offset
             from matplotlib.ticker import EngFormatter
 
@@ -305,18 +305,21 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
         handles = [
             Line2D([], [], color=BLUE, lw=1.2, alpha=0.6, label=f"branches of {n_lines} variants"),
             Line2D([], [], marker="x", ls="none", color=GREY, label="open-loop poles (each variant)"),
-            Line2D([], [], marker="o", ls="none", mfc="none", mec=GREY, label="open-loop zeros (each variant)"),
             Line2D([], [], marker="D", ls="none", mfc=VERMILLION, mec="white",
                    label=f"{crossing_what} ({n_crossing_variants} variants)"),
             Patch(fc=VERMILLION, alpha=0.15, label="right half plane (unstable)"),
         ]
+        has_zeros = bool(np.isfinite(zeros).any()) if zeros.size else False
+        if has_zeros:
+            handles.insert(2, Line2D([], [], marker="o", ls="none", mfc="none", mec=GREY,
+                                     label="open-loop zeros (each variant)"))
         if has_nom_locus:
             handles.insert(1, Line2D([], [], color=BLACK, lw=2.0, label="nominal branches"))
         if nom is not None and poles.size:
             handles.insert(3, Line2D([], [], marker="x", ls="none", color=BLACK, ms=8, mew=2,
                                      label="nominal open-loop poles"))
-        if nom is not None and zeros.size:
-            handles.insert(5, Line2D([], [], marker="o", ls="none", mfc="white", mec=BLACK, ms=7,
+        if nom is not None and has_zeros:
+            handles.insert(len(handles) - 2, Line2D([], [], marker="o", ls="none", mfc="white", mec=BLACK, ms=7,
                                      mew=2, label="nominal open-loop zeros"))
         ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), frameon=False,
                   borderaxespad=0.0)

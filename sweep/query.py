@@ -348,7 +348,8 @@ def summarize(ds: xr.Dataset, certificate: dict | None = None) -> dict[str, Any]
         None; ``robust_gain_interval`` ``[max critical_gain_low, min
         critical_gain]`` or None (a variant unstable at the reference gain, or
         an empty intersection); ``unstable_at_reference``; ``infinite`` (count
-        of ``inf`` critical gains); ``quantiles`` of the critical gain (numpy's
+        of ``inf`` critical gains); ``not_computed`` (stable at the reference
+        gain but NaN, flagged ill-conditioned; left out of the quantiles); ``quantiles`` of the critical gain (numpy's
         linear rule; a position among infinite values gives ``inf``; a position
         touching a variant unstable at the reference gain, which ranks lowest,
         gives NaN); ``sensitivity`` (list of {``parameter``, ``score``,
@@ -379,7 +380,7 @@ def summarize(ds: xr.Dataset, certificate: dict | None = None) -> dict[str, Any]
     out: dict[str, Any] = {"n_variants": int(V), "reference_gain": float(k_ref)}
     if V == 0:
         out.update(worst=None, nominal=None, robust_gain_interval=None, unstable_at_reference=0,
-                   infinite=0, quantiles={q: math.nan for q in QUANTILES}, sensitivity=[],
+                   infinite=0, not_computed=0, quantiles={q: math.nan for q in QUANTILES}, sensitivity=[],
                    sensitivity_method={"measure": None, "designs": [], "note": "no variants"},
                    operating=None, certified=_certified(ds, certificate))
         return out
@@ -414,6 +415,8 @@ def summarize(ds: xr.Dataset, certificate: dict | None = None) -> dict[str, Any]
         out["robust_gain_interval"] = [lo_i, hi_i] if lo_i < hi_i else None
     out["unstable_at_reference"] = n_unstable
     out["infinite"] = int(np.isposinf(crit).sum())
+    # stable at the reference gain but no number (flagged ill-conditioned): left out of quantiles
+    out["not_computed"] = int((~unstable & np.isnan(crit)).sum())
     out["quantiles"] = _ranked_stats(np.where(unstable, np.nan, crit), unstable)
     out["quantile_note"] = ("variants unstable at the reference gain rank lowest; a quantile that "
                             "falls on them is null") if n_unstable else ""
@@ -482,6 +485,8 @@ def format_summary(summary: dict, ds: xr.Dataset) -> str:
         ("unstable at reference gain", str(summary["unstable_at_reference"])),
         ("infinite critical gains", str(summary.get("infinite", 0))),
     ]
+    if summary.get("not_computed"):
+        rows.append(("not computed (ill-conditioned)", str(summary["not_computed"])))
     nom = summary.get("nominal")
     if nom:
         rows.append(("nominal critical gain", _num(nom["critical_gain"])))
