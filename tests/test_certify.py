@@ -689,3 +689,12 @@ def test_infinite_upper_with_finite_lower_is_not_certified():
                            gain_range=(0, INF), reference=0.0, max_boxes=200)
     assert res.upper == INF and math.isfinite(res.lower)
     assert res.status == "budget"
+
+
+def test_public_api_call_after_submodule_import():
+    # DESIGN section 7: sweep.certify(config, rtol=...) even once the submodule is imported
+    import sweep
+    import sweep.certify  # noqa: F401
+
+    res = sweep.certify(_config(TANK_PARAMS, TANK_PLANT), rtol=0.01)
+    assert res["method"] == "kharitonov"
