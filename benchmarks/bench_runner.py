@@ -3,7 +3,8 @@
 Run: ``python benchmarks/bench_runner.py [--base 2000] [--chunk 500]``.
 
 1. Peak resident memory of a whole ``run`` (sample, compute, write parts,
-   merge) for ``base`` and ``10 * base`` variants, each run in its own fresh
+   merge) for ``base`` and ``10 * base`` variants (same chunk size, so the
+   per-chunk working set is the same and only growth with size shows), each run in its own fresh
    subprocess (``resource.getrusage(RUSAGE_CHILDREN).ru_maxrss`` of the
    child). Target: the 10x run needs at most 1.5x the memory.
 2. Run time (inside the child, imports excluded) of a ``speed``-sized run
@@ -86,14 +87,16 @@ def one_run(folder: Path, samples: int, chunk: int, points: int, jobs: int, tag:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--base", type=int, default=2000, help="samples of the small memory run")
-    ap.add_argument("--chunk", type=int, default=500)
-    ap.add_argument("--points", type=int, default=60)
-    ap.add_argument("--speed", type=int, default=8000, help="samples of the speed runs")
+    ap.add_argument("--chunk", type=int, default=4096, help="chunk size of the speed runs")
+    ap.add_argument("--mem-chunk", type=int, default=1000,
+                    help="chunk size of the memory runs (<= base, so both runs hold full chunks)")
+    ap.add_argument("--points", type=int, default=300)
+    ap.add_argument("--speed", type=int, default=32000, help="samples of the speed runs")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
-        small = one_run(folder, args.base, args.chunk, args.points, 1, "small")
-        big = one_run(folder, 10 * args.base, args.chunk, args.points, 1, "big")
+        small = one_run(folder, args.base, args.mem_chunk, args.points, 1, "small")
+        big = one_run(folder, 10 * args.base, args.mem_chunk, args.points, 1, "big")
         ratio = big["maxrss_kb"] / small["maxrss_kb"]
         print(f"memory: {args.base + 9} variants -> peak RSS {small['maxrss_kb'] / 1024:.1f} MiB "
               f"({small['seconds']:.1f} s, file {small['size_mb']:.2f} MB)")
