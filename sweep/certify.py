@@ -434,7 +434,15 @@ PointFn = Callable[[np.ndarray], np.ndarray]
 
 
 @dataclass
-class _Result:
+class BoundResult:
+    """Outcome of `branch_and_bound`.
+
+    ``lower``/``upper`` bound the smallest critical gain over the box (NaN with
+    status "unstable_at_reference"); ``worst`` is the point attaining
+    ``upper`` (or the unstable point); ``where`` a ``(2, p)`` box where the proof
+    failed; ``status`` as in `certify`.
+    """
+
     lower: float
     upper: float
     boxes: int
@@ -469,7 +477,7 @@ def branch_and_bound(
     batch: int = 64,
     progress: Callable[[int, float, float], None] | None = None,
     refine: bool = True,
-) -> _Result:
+) -> BoundResult:
     """Bounds on ``min over the box`` of the critical gain.
 
     Parameters
@@ -491,11 +499,11 @@ def branch_and_bound(
     progress
         Optional ``progress(boxes, lower, upper)`` after every iteration.
     refine
-        Polish the best point with a bounded local minimisation.
+        Polish the best starting points with a batched, bounded pattern search.
 
     Returns
     -------
-    _Result
+    BoundResult
         ``lower`` is guaranteed (up to the floating-point caveat of the pencil
         root computation); ``upper`` is a critical gain actually attained.
     """
@@ -536,7 +544,7 @@ def branch_and_bound(
     X0 = np.concatenate(start)
     g0 = point_gains(X0)
     if np.isnan(g0).any():
-        return _Result(math.nan, math.nan, 0, X0[np.argmax(np.isnan(g0))], "unstable_at_reference",
+        return BoundResult(math.nan, math.nan, 0, X0[np.argmax(np.isnan(g0))], "unstable_at_reference",
                        "a point of the box is unstable at the reference gain")
     i0 = int(np.argmin(g0))
     best_val, best_x = float(g0[i0]), X0[i0].copy()
@@ -554,7 +562,7 @@ def branch_and_bound(
         order = np.argsort(g0)[: min(4, g0.size)]
         _refine(point_gains, low, high, X0[order], record)
         if found_bad:
-            return _Result(math.nan, math.nan, 0, found_bad[0], "unstable_at_reference",
+            return BoundResult(math.nan, math.nan, 0, found_bad[0], "unstable_at_reference",
                            "a point of the box is unstable at the reference gain")
 
     # open boxes as arrays
@@ -621,7 +629,7 @@ def branch_and_bound(
         c_status = np.where(p_ok, OK, c_status).astype(np.int8)
         bad = points(0.5 * (c_lo + c_hi))
         if bad is not None:
-            return _Result(math.nan, math.nan, n_boxes, bad, "unstable_at_reference",
+            return BoundResult(math.nan, math.nan, n_boxes, bad, "unstable_at_reference",
                            "a point of the box is unstable at the reference gain")
         B_lo = np.concatenate([B_lo[rest], c_lo])
         B_hi = np.concatenate([B_hi[rest], c_hi])
@@ -629,7 +637,7 @@ def branch_and_bound(
         status = np.concatenate([status[rest], c_status])
     lower = open_lower()
     if state == "certified":
-        return _Result(lower, best_val, n_boxes, best_x, state, "bounds within the requested tolerance")
+        return BoundResult(lower, best_val, n_boxes, best_x, state, "bounds within the requested tolerance")
     msg = ("boxes shrank to points without closing the gap" if state == "stalled"
            else "budget exhausted before the requested tolerance was reached")
     bad_st = status != OK
@@ -639,12 +647,12 @@ def branch_and_bound(
         i = int(np.argmin(np.where(bad_st, size, np.inf)))
         where_fail = np.stack([B_lo[i], B_hi[i]])
         if status[i] == DEGREE_FAILS:
-            return _Result(lower, best_val, n_boxes, best_x, "degree_invariance_fails",
+            return BoundResult(lower, best_val, n_boxes, best_x, "degree_invariance_fails",
                            f"{msg}; the leading coefficient of D + k*sigma*N at the reference gain "
                            "is not proven to keep its sign", where_fail)
-        return _Result(lower, best_val, n_boxes, best_x, "reference_unproven",
+        return BoundResult(lower, best_val, n_boxes, best_x, "reference_unproven",
                        f"{msg}; stability at the reference gain is not proven", where_fail)
-    return _Result(lower, best_val, n_boxes, best_x, state, msg)
+    return BoundResult(lower, best_val, n_boxes, best_x, state, msg)
 
 
 _TINY = 1e-300
