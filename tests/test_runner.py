@@ -308,6 +308,33 @@ def test_joblib_two_jobs_identical(tmp_path, reference):
 
 
 @pytest.mark.slow
+def test_joblib_worker_exception_reraised(tmp_path, monkeypatch):
+    cfg = load_config(write_config(tmp_path))
+    real = runner.compute_chunk
+
+    def failing(config, variants, gains, kept):  # a closure: joblib ships it by value
+        if variants.start == 10:
+            raise ZeroDivisionError("chunk failed on purpose")
+        return real(config, variants, gains, kept)
+
+    monkeypatch.setattr(runner, "compute_chunk", failing)
+    with pytest.raises(ZeroDivisionError, match="on purpose"):
+        runner.run(cfg, out=tmp_path / "jw.nc", jobs=2, quiet=True)
+    assert not (tmp_path / "jw.nc.lock").exists() and not (tmp_path / "jw.nc").exists()
+    assert "failed: ZeroDivisionError" in (tmp_path / "jw.nc.log").read_text()
+
+
+def test_parameter_name_clash_refused(tmp_path):
+    import dataclasses
+
+    cfg = load_config(write_config(tmp_path))
+    bad = dataclasses.replace(cfg, parameters=cfg.parameters[:-1] + (dataclasses.replace(cfg.parameters[-1], name="gain"),))
+    with pytest.raises(InputError, match="parameters.gain"):
+        runner.run(bad, out=tmp_path / "n.nc", jobs=1, quiet=True)
+    assert not (tmp_path / "n.nc.parts").exists()
+
+
+@pytest.mark.slow
 def test_dask_local_cluster_identical(tmp_path, reference, monkeypatch):
     distributed = pytest.importorskip("distributed")
     cloudpickle = pytest.importorskip("cloudpickle")
