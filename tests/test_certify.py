@@ -698,3 +698,49 @@ def test_public_api_call_after_submodule_import():
 
     res = sweep.certify(_config(TANK_PARAMS, TANK_PLANT), rtol=0.01)
     assert res["method"] == "kharitonov"
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    poles=st.lists(st.floats(0.2, 5.0), min_size=3, max_size=4),
+    zero=st.one_of(st.none(), st.floats(0.1, 10.0)),
+    rel=st.floats(0.0, 0.3),
+    sigma=st.sampled_from([1, -1]),
+)
+def test_kharitonov_equals_vertex_minimum(poles, zero, rel, sigma):
+    # Kharitonov (1978): the four pencils decide the whole coefficient box, and each pencil is a
+    # vertex, so the smallest critical gain over all vertices equals the pencil bound
+    D = np.poly(-np.array(poles))
+    N = np.array([1.0]) if zero is None else np.array([1.0, zero])
+    N = sigma * N  # positive feedback with a sign-flipped numerator loses stability too
+    D_lo, D_hi = D * (1 - rel * np.sign(D)), D * (1 + rel * np.sign(D))
+    N_lo, N_hi = np.minimum(N * (1 - rel), N * (1 + rel)), np.maximum(N * (1 - rel), N * (1 + rel))
+    bound, status = kharitonov_lower_bound(N_lo[None], N_hi[None], D_lo[None], D_hi[None], sigma=sigma,
+                                           gain_range=(0, INF), reference=0.0)
+    lo = np.concatenate([N_lo, D_lo])
+    hi = np.concatenate([N_hi, D_hi])
+    V = _vertices(lo, hi)
+    g = pencil_critical_gains(V[:, :N.size], V[:, N.size:], sigma=sigma, gain_range=(0, INF), reference=0.0)
+    if status[0] == OK:
+        assert not np.isnan(g).any()
+        if math.isinf(bound[0]):
+            assert np.all(np.isinf(g))
+        else:
+            assert g.min() == pytest.approx(bound[0], rel=1e-9)
+    elif status[0] == UNSTABLE_AT_REFERENCE:
+        # some vertex is unstable just above the reference gain (a pencil is a vertex)
+        assert np.isnan(g).any()
+
+
+def test_interval_family_positive_feedback_corner_sweep():
+    # a hoist loop closed with positive feedback through a sign-inverting amplifier
+    params = {
+        "b1": "{ nominal = -0.5, tol = '10%' }", "b0": "{ nominal = -1.5, tol = '10%' }",
+        "a3": "{ nominal = 1.0, tol = '5%' }", "a2": "{ nominal = 4.0, tol = '10%' }",
+        "a1": "{ nominal = 6.0, tol = '10%' }", "a0": "{ nominal = 3.0, tol = '10%' }",
+    }
+    cfg = _config(params, "num = ['b1', 'b0']\nden = ['a3', 'a2', 'a1', 'a0']", "feedback = 'positive'")
+    res = certify(cfg)
+    assert res["method"] == "kharitonov" and res["status"] == "exact"
+    g = _sweep_gains(cfg, _corner_values(cfg))  # Kharitonov (1978): worst case at a vertex
+    assert np.nanmin(g) == pytest.approx(res["lower"], rel=1e-9)
