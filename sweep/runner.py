@@ -391,6 +391,19 @@ def _manifest(config: Config, out: Path, parts: Path, variants: Variants, log: _
     return man
 
 
+def _remove_leftovers(out: Path, parts: Path, log: _Log) -> None:
+    """Delete temporary files of killed runs (we hold the lock, so none is being written)."""
+    found = list(out.parent.glob(f".{out.name}.tmp-*"))
+    if parts.exists():
+        found += list(parts.glob(".*.tmp-*"))
+    for f in found:
+        try:
+            f.unlink()
+            log(f"removed leftover {f.name}")
+        except OSError:
+            pass
+
+
 def _part_path(parts: Path, i: int) -> Path:
     return parts / f"chunk-{i:05d}.nc"
 
@@ -494,6 +507,7 @@ def run(
         if not parts.exists() and out.exists() and _complete(out, config):
             log("output already complete for this config; nothing to do")
             return out
+        _remove_leftovers(out, parts, log)
         man = _manifest(config, out, parts, variants, log)
         gains = np.asarray(man["gains"], dtype=float)
         mask = np.zeros(variants.count, dtype=bool)

@@ -194,11 +194,14 @@ def test_sigkill_then_resume_is_identical(tmp_path, reference, pause):
     parts = sorted(p.name for p in (tmp_path / "k.nc.parts").glob("chunk-*.nc"))
     assert len(parts) == {"chunks:0": 0, "chunks:3": 3, "merge:2": 6}[pause]
     assert (tmp_path / "k.nc.lock").exists()  # left behind by the killed run: stale
+    if pause.startswith("merge"):
+        assert list(tmp_path.glob(".k.nc.tmp-*"))  # the half-merged file, under its temporary name
     runner.run(load_config(cfg_path), out=out, jobs=1, resume=True, quiet=True)
     log = (tmp_path / "k.nc.log").read_text()
     assert "taking over stale lock" in log
     assert f"{len(parts)} valid on disk" in log
     xr.testing.assert_identical(load(out), reference)
+    assert not list(tmp_path.glob(".k.nc.tmp-*"))
 
 
 def test_changed_config_refused(tmp_path, monkeypatch):
