@@ -2,8 +2,9 @@
 
 A *variant* is one point of the tolerance box: a value for every parameter
 (fixed ones too) and the name of the design that produced it. Variants are
-ordered by design, in the order the config lists the designs; variant 0 is
-the nominal when ``nominal`` is listed first.
+ordered by design, in the order the config lists the designs, except that
+``nominal``, when listed anywhere, always comes first: variant 0 is the
+nominal (DESIGN.md section 4).
 
 Choices written down here (DESIGN.md leaves them open):
 
@@ -218,6 +219,12 @@ def _design_block(config: Config, name: str, occurrence: int) -> np.ndarray:
     return np.stack([_from_unit(q, u[:, j]) for j, q in enumerate(unc)], axis=1).reshape(n, len(unc))
 
 
+def _order(names) -> list[str]:
+    """Config order, except that ``nominal`` comes first (variant 0 is the nominal)."""
+    names = list(names)
+    return ["nominal"] * names.count("nominal") + [n for n in names if n != "nominal"]
+
+
 def generate(config: Config) -> Variants:
     """All variants of the sweep, in design order.
 
@@ -241,7 +248,7 @@ def generate(config: Config) -> Variants:
     unc = config.uncertain
     blocks, labels = [], []
     seen: dict[str, int] = {}
-    for name in config.sweep.designs:
+    for name in _order(config.sweep.designs):
         occ = seen.get(name, 0)
         seen[name] = occ + 1
         block = _design_block(config, name, occ)

@@ -43,6 +43,12 @@ def test_order_counts_and_labels():
         assert np.all((v.values[p.name] >= p.low) & (v.values[p.name] <= p.high))
 
 
+def test_nominal_is_variant_zero_wherever_listed():
+    v = generate(make(("corners", "random", "nominal")))
+    assert list(v.design[:2]) == ["nominal", "corners"] and v.design[-1] == "random"
+    assert v.values["R"][0] == 1.2
+
+
 def test_corners_are_vertices_in_binary_order():
     v = generate(make(("corners",)))
     pts = np.stack([v.values[n] for n in ("R", "J", "C")], axis=1)
