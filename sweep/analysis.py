@@ -291,7 +291,9 @@ def _check_inputs(N, D, sigma, gain_range, operating_gain):
 
 def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
                   operating_gain: float | None = None,
-                  full_check: bool = False) -> dict[str, np.ndarray]:
+                  full_check: bool = False,
+                  open_loop_poles: np.ndarray | None = None,
+                  closed_loop_poles: np.ndarray | None = None) -> dict[str, np.ndarray]:
     """Analyse a stack of loops ``k N/D`` closed with ``P = D + sigma k N``.
 
     Parameters
@@ -311,6 +313,11 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
     full_check
         Also compare the Routh classification with eigenvalue counts at the
         test gain of every interval (slower; validation mode).
+    open_loop_poles, closed_loop_poles
+        Roots ``(V, n)`` already known to the caller (the roots of ``D``, and
+        of ``P`` at the operating gain), e.g. from locus tracing on a grid
+        that holds the operating gain. They replace two eigenvalue passes;
+        any order is accepted.
 
     Returns
     -------
@@ -485,7 +492,10 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
     cfreq = np.where(stable_ref, cfreq, np.nan)
 
     # -- 4. sketch quantities --------------------------------------------------
-    poles_t = _sort_complex(_companion_eigvals(Ds))
+    if open_loop_poles is not None:
+        poles_t = _sort_complex(np.asarray(open_loop_poles, dtype=complex) / w0[:, None])
+    else:
+        poles_t = _sort_complex(_companion_eigvals(Ds))
     zr, zdeg = _stack_roots(Ns) if m > 0 else (np.zeros((V, 0), complex), np.zeros(V, int))
     zeros_t = _sort_complex(zr)
     poles = poles_t * w0[:, None]
@@ -552,7 +562,10 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
     nan_v = np.full(V, np.nan)
     if k_op is not None:
         Pop = Ds + sigma * (k_op / g)[:, None] * Nsp
-        cl_t = _sort_complex(_companion_eigvals(Pop))
+        if closed_loop_poles is not None:
+            cl_t = _sort_complex(np.asarray(closed_loop_poles, dtype=complex) / w0[:, None])
+        else:
+            cl_t = _sort_complex(_companion_eigvals(Pop))
         cl = cl_t * w0[:, None]
         r_eig = np.sum(cl_t.real > 1e-9, axis=1)
         # the Routh count of the interval holding the operating gain
