@@ -12,6 +12,11 @@ Run: ``python benchmarks/bench_runner.py [--base 2000] [--chunk 500]``.
    1.6x faster than ``-j 1`` (needs two free cores; the joblib worker
    start-up is inside the ``-j 2`` time).
 
+Also printed: the sum of the per-chunk compute times (from ``OUT.log``)
+over the run time, i.e. how many chunks were being computed at once on
+average; on a loaded machine it shows whether a miss is the runner's or the
+machine's.
+
 Prints the figures and PASS/FAIL per target; exit status 0 either way (the
 numbers are for the report, not an assertion).
 """
@@ -63,7 +68,10 @@ from sweep.config import load_config
 t0 = time.perf_counter()
 runner.run(load_config(sys.argv[1]), out=sys.argv[2], jobs=int(sys.argv[3]), quiet=True)
 dt = time.perf_counter() - t0
-print(json.dumps({"seconds": dt, "maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss}))
+log = open(sys.argv[2] + ".log").read().split()
+busy = sum(float(log[i + 1]) for i, w in enumerate(log) if w == "in" and log[i - 1] == "computed")
+print(json.dumps({"seconds": dt, "chunk_seconds": busy,
+                  "maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss}))
 """
 
 
@@ -109,6 +117,8 @@ def main() -> None:
         sp = j1["seconds"] / j2["seconds"]
         print(f"speed: {args.speed + 9} variants, chunk {args.chunk}: -j 1 {j1['seconds']:.2f} s, "
               f"-j 2 {j2['seconds']:.2f} s ({(args.speed + 9) / j2['seconds']:.0f} variants/s)")
+        print(f"chunk compute seconds / run seconds (workers kept busy): -j 1 "
+              f"{j1['chunk_seconds'] / j1['seconds']:.2f}, -j 2 {j2['chunk_seconds'] / j2['seconds']:.2f}")
         print(f"speed-up -j 2 over -j 1: {sp:.2f}x  target >= 1.6  {'PASS' if sp >= 1.6 else 'FAIL'}"
               f"  (cores: {os.cpu_count()}, load average {os.getloadavg()[0]:.2f})")
 
