@@ -417,6 +417,21 @@ def trace(N, D, *, sigma: int, gains, method: str = "continuation",
     the branch whose prediction the finite roots fit worst (the one that was
     heading out to infinity); on the next gain the returning root joins that
     branch again.
+
+    Continuation accepts a variant's Newton result at a gain only when every
+    root converged (last step below ``1e-12`` of the root scale, or a
+    contracting step whose geometric tail is, or a residual at the rounding
+    level of the evaluation) and every correction is under a third of the
+    distance from its prediction to the nearest other prediction (so each
+    root is the nearest one to its own prediction by a factor two, and no
+    two predictions converged to one root).  Otherwise - near break-away
+    points, where real roots must leave the real axis, on coarse grids, at
+    degree drops - that variant's step is redone with companion eigenvalues
+    and optimal matching against the prediction (each predicted step capped
+    at half the distance to the nearest other root).  Accuracy is then that
+    of a backward-stable root finder: the deviation from the eigenvalues is
+    at rounding level for well-separated roots and grows with the condition
+    of clustered roots, for both methods.
     """
     N, D, sg, g = _check_inputs(N, D, sigma, gains)
     if method not in ("continuation", "eig"):
