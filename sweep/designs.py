@@ -45,8 +45,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
-from scipy.stats import qmc
 
 from .config import DESIGNS, Config, Parameter
 from .errors import InputError
@@ -114,6 +112,8 @@ def _sigma(p: Parameter) -> float:
 def _from_unit(p: Parameter, u: np.ndarray) -> np.ndarray:
     """Map unit-interval draws to the parameter's distribution (inverse CDF)."""
     if p.dist == "normal":
+        from scipy import stats  # imported here: chunk workers import this module without needing scipy.stats
+
         sd = _sigma(p)
         a, b = (p.low - p.nominal) / sd, (p.high - p.nominal) / sd
         x = stats.truncnorm.ppf(u, a, b, loc=p.nominal, scale=sd)
@@ -198,6 +198,8 @@ def _unit_points(name: str, p: int, n: int, rng: np.random.Generator) -> np.ndar
         return np.zeros((0, p))
     if name == "random":
         return rng.random((n, p))
+    from scipy.stats import qmc
+
     if name == "lhs":
         return qmc.LatinHypercube(d=p, scramble=True, rng=rng).random(n)
     # sobol: next power of two via random_base2 (no balance warning), keep the first n
