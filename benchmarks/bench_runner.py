@@ -10,7 +10,8 @@ Run: ``python benchmarks/bench_runner.py [--base 2000] [--chunk 500]``.
 2. Run time (inside the child, imports excluded) of a ``speed``-sized run
    with ``jobs=1`` and ``jobs=2``, side by side. Target: ``-j 2`` at least
    1.6x faster than ``-j 1`` (needs two free cores; the joblib worker
-   start-up is inside the ``-j 2`` time).
+   start-up, about 1-2 s, is inside the ``-j 2`` time, so the run must be
+   long enough: the default 65000 samples make 16 chunks of 4096).
 
 Also printed: the sum of the per-chunk compute times (from ``OUT.log``)
 over the run time, i.e. how many chunks were being computed at once on
@@ -99,7 +100,7 @@ def main() -> None:
     ap.add_argument("--mem-chunk", type=int, default=1000,
                     help="chunk size of the memory runs (<= base, so both runs hold full chunks)")
     ap.add_argument("--points", type=int, default=300)
-    ap.add_argument("--speed", type=int, default=32000, help="samples of the speed runs")
+    ap.add_argument("--speed", type=int, default=65000, help="samples of the speed runs")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
