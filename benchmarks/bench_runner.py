@@ -1,6 +1,6 @@
 """Benchmarks of the runner: memory against sweep size, speed-up from parallel jobs.
 
-Run: ``python benchmarks/bench_runner.py [--base 2000] [--chunk 500]``.
+Run: ``python benchmarks/bench_runner.py [--base 2000] [--mem-chunk 1000] [--speed 65000] [--chunk 4096] [--points 300]``.
 
 1. Peak resident memory of a whole ``run`` (sample, compute, write parts,
    merge) for ``base`` and ``10 * base`` variants (same chunk size, so the
