@@ -5,12 +5,10 @@ Exit status: 0 done, 2 bad input, 1 anything else.
 from __future__ import annotations
 
 import argparse
-import math
+import os
 import sys
 import warnings
-from typing import Any, Sequence
-
-import numpy as np
+from typing import Sequence
 
 from . import __version__
 from .errors import InputError, SweepError
@@ -71,6 +69,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("config", metavar="CONFIG", help="TOML config file")
     p.add_argument("--rtol", type=float, default=0.01, metavar="R", help="stop when upper - lower <= R * upper (default 0.01)")
     p.add_argument("--max-seconds", type=float, default=120.0, metavar="T", help="time budget (default 120)")
+    p.add_argument("-o", "--out", metavar="RESULT",
+                   help="the result file the certificate belongs to; it is saved beside it as <stem>.certificate.json "
+                        "(default results/<config stem>.nc) and 'sweep query' shows it")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
@@ -164,8 +165,11 @@ def _open_result(path: str):
 def _cmd_query(args: argparse.Namespace) -> int:
     from . import query
 
+    from . import store
+
     ds = _open_result(args.result)
-    summary = query.summarize(ds)
+    certificate = store.read_certificate(args.result, config_sha256=str(ds.attrs.get("config_sha256", "")))
+    summary = query.summarize(ds, certificate=certificate)
     if args.json:
         from .jsonutil import dumps
 
@@ -176,8 +180,6 @@ def _cmd_query(args: argparse.Namespace) -> int:
 
 
 def _cmd_plot(args: argparse.Namespace) -> int:
-    import os
-
     from . import plots
 
     ds = _open_result(args.result)
@@ -215,12 +217,17 @@ def _cmd_certify(args: argparse.Namespace) -> int:
     finally:
         if bar is not None:
             bar.close()
+    from . import store
+
+    result_path = args.out or os.path.join("results", f"{config.stem}.nc")
+    saved = store.write_certificate(result, result_path, config_sha256=config.sha256)
     if args.json:
         from .jsonutil import dumps
 
         print(dumps(result))
     else:
-        print(certify_mod.format_certificate(result) if hasattr(certify_mod, "format_certificate") else _format_plain(result))
+        print(certify_mod.format_certificate(result))
+        print(f"certificate saved to {saved}")
     return EXIT_OK
 
 
@@ -240,17 +247,6 @@ def _cmd_bench(args: argparse.Namespace) -> int:
     else:
         print(bench.format_result(result))
     return EXIT_OK
-
-
-def _format_plain(result: dict[str, Any]) -> str:
-    lines = []
-    for key, value in result.items():
-        if isinstance(value, float) and math.isinf(value):
-            value = "inf"
-        elif isinstance(value, (np.floating, float)):
-            value = f"{value:.6g}"
-        lines.append(f"{key:>18}  {value}")
-    return "\n".join(lines)
 
 
 _COMMANDS = {

@@ -303,10 +303,18 @@ def compute_chunk(config: Config, variants: Variants, gains: np.ndarray, kept: n
     from . import analysis, locus, loop
 
     N, D = loop.assemble(config, variants.values)
-    res = analysis.analyze_stack(
-        N, D, sigma=config.sigma, gain_range=config.gain_range, operating_gain=config.operating_gain
-    )
     roots = locus.trace(N, D, sigma=config.sigma, gains=gains)  # (V, G, n)
+    # The grid holds the operating gain exactly, so the traced roots there are the
+    # closed-loop poles: the analysis need not solve that eigenproblem again.
+    closed = None
+    if config.operating_gain is not None:
+        at = np.flatnonzero(gains == config.operating_gain)
+        if at.size and np.all(np.isfinite(roots[:, at[0], :])):
+            closed = roots[:, at[0], :]
+    res = analysis.analyze_stack(
+        N, D, sigma=config.sigma, gain_range=config.gain_range, operating_gain=config.operating_gain,
+        closed_loop_poles=closed,
+    )
     data: dict[str, Any] = {}
     for name, dims in analysis.VARIABLE_DIMS.items():
         if name in res:

@@ -338,3 +338,63 @@ def open_result(path: str | os.PathLike) -> xr.Dataset:
     xarray.Dataset
     """
     return xr.open_dataset(Path(path), engine="netcdf4")
+
+
+# ---------------------------------------------------------------------------
+# Certificates: the result of `sweep certify`, kept beside a result file
+# ---------------------------------------------------------------------------
+
+
+def certificate_path(result_path: str | os.PathLike) -> Path:
+    """Where the certificate belonging to a result file lives: ``<stem>.certificate.json``."""
+    p = Path(result_path)
+    return p.with_name(p.stem + ".certificate.json")
+
+
+def write_certificate(certificate: Mapping[str, object], result_path: str | os.PathLike, *, config_sha256: str) -> Path:
+    """Write a certificate beside a (possibly future) result file, atomically.
+
+    The config hash is stored with it, so a certificate of another config is
+    never shown beside a result.
+    """
+    import json
+
+    from .jsonutil import to_jsonable
+
+    path = certificate_path(result_path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    body = dict(to_jsonable(dict(certificate)))
+    body["config_sha256"] = config_sha256
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    with open(tmp, "w", encoding="utf-8") as fh:
+        json.dump(body, fh, indent=2, allow_nan=False)
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+    return path
+
+
+def read_certificate(result_path: str | os.PathLike, *, config_sha256: str) -> dict | None:
+    """The certificate beside a result file, or None when absent, unreadable or of another config."""
+    import json
+
+    path = certificate_path(result_path)
+    try:
+        with open(path, encoding="utf-8") as fh:
+            body = json.load(fh)
+    except (OSError, ValueError):
+        return None
+    if not isinstance(body, dict) or body.get("config_sha256") != config_sha256:
+        return None
+
+    def number(x: object) -> object:
+        if x == "inf":
+            return float("inf")
+        if x == "-inf":
+            return float("-inf")
+        return float("nan") if x is None else x
+
+    for key in ("lower", "upper", "relative_gap"):
+        if key in body:
+            body[key] = number(body[key])
+    return body
