@@ -21,6 +21,7 @@ polynomial ``P(s, k) = D(s) + sigma * k * N(s)``.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from typing import Iterable
 
 import numpy as np
@@ -31,6 +32,8 @@ from .errors import InputError
 __all__ = [
     "gain_grid",
     "trace",
+    "trace_chunk",
+    "ChunkLocus",
     "spectral_abscissa",
     "Envelope",
     "kept_indices",
@@ -689,6 +692,60 @@ def _continuation_step_t(P, nz, pred, prev, st):
                           _roots_eig(np.ascontiguousarray(P[:, fb].T), nz[fb])).T
         dp[:, fb] = np.nan
     return z, dp
+
+
+# --------------------------------------------------------------------------- one chunk
+
+@dataclass(frozen=True)
+class ChunkLocus:
+    """What a sweep keeps of the loci of one chunk of variants.
+
+    Attributes
+    ----------
+    kept_roots
+        complex128 ``(Vk, G, n)``: the branches of the kept variants (rows of
+        ``keep`` that are True, in order).
+    operating_roots
+        complex128 ``(V, n)``: the closed-loop roots at ``gains[operating_index]``
+        for every variant, or None when no index was asked for.
+    open_loop_poles
+        complex128 ``(V, n)``: the roots of ``D`` (branch starting points).
+    envelope
+        The chunk's spectral-abscissa `Envelope` over all ``V`` variants.
+    """
+
+    kept_roots: np.ndarray
+    operating_roots: np.ndarray | None
+    open_loop_poles: np.ndarray
+    envelope: "Envelope"
+
+
+def trace_chunk(N, D, *, sigma: int, gains, keep, operating_index: int | None = None) -> ChunkLocus:
+    """Trace a chunk and keep only what a sweep stores.
+
+    Parameters
+    ----------
+    N, D, sigma, gains
+        As in `trace`.
+    keep
+        Bool ``(V,)``: whose branches to return in full.
+    operating_index
+        Index into ``gains`` of the operating gain (its roots are returned
+        for every variant), or None.
+
+    Returns
+    -------
+    ChunkLocus
+    """
+    keep = np.asarray(keep, dtype=bool)
+    roots = trace(N, D, sigma=sigma, gains=gains)
+    _, Ds = _stacks(N, D)
+    return ChunkLocus(
+        kept_roots=roots[keep],
+        operating_roots=None if operating_index is None else roots[:, int(operating_index)].copy(),
+        open_loop_poles=_open_loop_poles(Ds),
+        envelope=Envelope(roots.shape[1]).update(roots),
+    )
 
 
 # --------------------------------------------------------------------------- envelope

@@ -303,38 +303,38 @@ def compute_chunk(config: Config, variants: Variants, gains: np.ndarray, kept: n
     from . import analysis, locus, loop
 
     N, D = loop.assemble(config, variants.values)
-    roots = locus.trace(N, D, sigma=config.sigma, gains=gains)  # (V, G, n)
     # The grid holds the operating gain exactly, so the traced roots there are the
-    # closed-loop poles: the analysis need not solve that eigenproblem again.
-    closed = None
+    # closed-loop poles, and the branches start at the open-loop poles: the analysis
+    # need not solve those eigenproblems again.
+    op_index = None
     if config.operating_gain is not None:
         at = np.flatnonzero(gains == config.operating_gain)
-        if at.size and np.all(np.isfinite(roots[:, at[0], :])):
-            closed = roots[:, at[0], :]
+        op_index = int(at[0]) if at.size else None
+    traced = locus.trace_chunk(N, D, sigma=config.sigma, gains=gains, keep=kept, operating_index=op_index)
+    closed = traced.operating_roots
+    if closed is not None and not np.all(np.isfinite(closed)):
+        closed = None
     res = analysis.analyze_stack(
         N, D, sigma=config.sigma, gain_range=config.gain_range, operating_gain=config.operating_gain,
-        closed_loop_poles=closed,
+        open_loop_poles=traced.open_loop_poles, closed_loop_poles=closed,
     )
     data: dict[str, Any] = {}
     for name, dims in analysis.VARIABLE_DIMS.items():
         if name in res:
             data[name] = (tuple(dims), np.asarray(res[name]), dict(analysis.VARIABLE_ATTRS[name]))
-    data.update(_locus_vars(roots, kept))
+    data.update(_locus_vars(traced))
     return xr.Dataset(data, coords=_coords(config, variants, gains, kept))
 
 
-def _locus_vars(roots: np.ndarray, kept: np.ndarray) -> dict[str, Any]:
-    """Kept loci (float32) and the chunk's envelope arrays, from the traced roots ``(V, G, n)``."""
-    from . import locus
-
+def _locus_vars(traced) -> dict[str, Any]:
+    """Kept loci (float32) and the chunk's envelope arrays, from a `sweep.locus.ChunkLocus`."""
     dims = ("locus_variant", "gain", "branch")
-    k = roots[kept]
+    k = traced.kept_roots
     out: dict[str, Any] = {
         "locus_real": (dims, k.real.astype(np.float32), {"long_name": "real part of closed-loop root", "units": "1/s"}),
         "locus_imag": (dims, k.imag.astype(np.float32), {"long_name": "imaginary part of closed-loop root", "units": "rad/s"}),
     }
-    env = locus.Envelope(roots.shape[1]).update(roots)
-    for name, arr in env.to_arrays().items():
+    for name, arr in traced.envelope.to_arrays().items():
         out[name] = ("gain", arr, {"long_name": f"chunk {name.split('_')[1]} of spectral abscissa", "units": "1/s"})
     return out
 
