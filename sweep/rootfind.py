@@ -34,12 +34,12 @@ __all__ = ["poly_roots", "companion_roots", "MAX_QR_ITERATIONS"]
 MAX_QR_ITERATIONS = 60
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy", inline="always")
 def _sign(a: float, b: float) -> float:
     return abs(a) if b >= 0.0 else -abs(a)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _balance(a) -> None:
     """Scale rows and columns of ``a`` in place by powers of two (exact) to equalise norms."""
     n = a.shape[0]
@@ -75,7 +75,7 @@ def _balance(a) -> None:
                         a[j, i] *= f
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _hessenberg_qr(a, wr, wi, max_its: int) -> bool:
     """Eigenvalues of the upper Hessenberg matrix ``a`` (overwritten) into ``wr + i wi``.
 
@@ -213,7 +213,7 @@ def _hessenberg_qr(a, wr, wi, max_its: int) -> bool:
     return True
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def companion_roots(c, out, work, wr, wi, max_its: int) -> bool:
     """Roots of the real polynomial ``c`` (highest power first, ``c[0] != 0``) into ``out``.
 
@@ -261,7 +261,7 @@ def companion_roots(c, out, work, wr, wi, max_its: int) -> bool:
     return True
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _roots_rows(C, degrees, out, max_its: int):
     V, w = C.shape
     d = w - 1
