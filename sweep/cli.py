@@ -157,9 +157,16 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
 
 def _open_result(path: str):
+    """Open a result file; a missing or unreadable one is bad input (one line, exit 2)."""
     from . import store
 
-    return store.open_result(path)
+    if not os.path.isfile(path):
+        raise InputError("no such result file; run 'sweep run CONFIG -o RESULT' first", file=path)
+    try:
+        return store.open_result(path)
+    except (OSError, ValueError) as exc:
+        raise InputError(f"not a readable netCDF result ({exc.__class__.__name__}); give the .nc file "
+                         "written by 'sweep run'", file=path) from None
 
 
 def _cmd_query(args: argparse.Namespace) -> int:
@@ -169,7 +176,11 @@ def _cmd_query(args: argparse.Namespace) -> int:
 
     ds = _open_result(args.result)
     certificate = store.read_certificate(args.result, config_sha256=str(ds.attrs.get("config_sha256", "")))
-    summary = query.summarize(ds, certificate=certificate)
+    try:
+        summary = query.summarize(ds, certificate=certificate)
+    except InputError as exc:  # name the result file the problem is in
+        exc.file = exc.file or args.result
+        raise
     if args.json:
         from .jsonutil import dumps
 
@@ -189,7 +200,11 @@ def _cmd_plot(args: argparse.Namespace) -> int:
         raise InputError(f"unknown image format '{ext or out}'; use a .png, .svg or .pdf file name", field="-o")
     if args.what == "plane" and not args.params:
         raise InputError("--what plane needs the two parameters to draw: --params A B", field="--params")
-    path = plots.plot(ds, args.what, out, params=tuple(args.params) if args.params else None)
+    try:
+        path = plots.plot(ds, args.what, out, params=tuple(args.params) if args.params else None)
+    except InputError as exc:  # name the result file the problem is in (unless it is the image)
+        exc.file = exc.file or args.result
+        raise
     print(path)
     return EXIT_OK
 
