@@ -15,9 +15,16 @@ So ``-x^2`` is ``-(x^2)``, ``2^3^2`` is ``2^(3^2)`` and ``x^-1`` is allowed.
 Numbers: ``12``, ``1.5``, ``.5``, ``3.0e-3``; NaN or infinite values (``nan``,
 ``inf``, ``1e999``) are refused. Names: ``[A-Za-z][A-Za-z0-9_]*``; a name that
 starts with ``_`` is refused (documented choice: no dunder or private names at
-all), as are Python keywords, ``nan``/``inf`` and the function names. ``s`` is
+all), as are Python's hard keywords (``lambda``, ``import``, ...), ``nan``,
+``inf`` and ``infinity`` in any letter case, and the function names. ``s`` is
 the Laplace variable. Functions: ``sqrt exp log sin cos tan``, one argument.
 Error positions count characters from 1.
+
+Size limits (so that no input can exhaust the stack or hang): at most
+`MAX_TEXT` characters, at most `MAX_NESTING` nested parentheses, signs and
+exponents, and a tree at most `MAX_DEPTH` levels deep (a sum of n terms is n
+levels deep). Every evaluator recurses over the tree, so these limits
+keep them far from Python's recursion limit whatever the caller's stack.
 """
 from __future__ import annotations
 
@@ -48,6 +55,8 @@ __all__ = [
     "names",
     "has_s",
     "check",
+    "depth",
+    "domain_guards",
     "to_text",
     "evaluate",
     "evaluate_rational",
@@ -57,8 +66,10 @@ FUNCTIONS = ("sqrt", "exp", "log", "sin", "cos", "tan")
 _ALLOWED = "numbers, parameter names, s, + - * / ^ **, parentheses and the functions " + ", ".join(FUNCTIONS)
 # integer powers of expressions in s beyond this would blow up the degree
 MAX_S_POWER = 64
-# a config expression is a line or two; this bounds parser and evaluator depth
+# a config expression is a line or two; these bound the parser's and the evaluators' recursion
 MAX_TEXT = 10_000
+MAX_NESTING = 100
+MAX_DEPTH = 250
 
 
 # ----------------------------------------------------------------- tree nodes
@@ -134,6 +145,11 @@ def _err(msg: str) -> ExpressionError:
     return ExpressionError(" ".join(msg.split()))
 
 
+def _short(text: str, limit: int = 40) -> str:
+    """`text` cut to `limit` characters for a message (inputs may be very long)."""
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
 def _tokenize(text: str) -> list[_Tok]:
     toks: list[_Tok] = []
     i = 0
@@ -148,13 +164,13 @@ def _tokenize(text: str) -> list[_Tok]:
             j = m.end()
             if j < n and (text[j].isalnum() or text[j] in "_."):
                 raise _err(
-                    f"malformed number '{text[i:j + 1]}' at position {i + 1}; "
+                    f"malformed number '{_short(text[i:j + 1])}' at position {i + 1}; "
                     f"write numbers like 12, 0.5 or 3.0e-3 and use '*' between a number and a name"
                 )
             lit = m.group(0)
             value = float(lit)
             if not np.isfinite(value):
-                raise _err(f"number '{lit}' at position {i + 1} is too large (not finite); numbers must be finite")
+                raise _err(f"number '{_short(lit)}' at position {i + 1} is too large (not finite); numbers must be finite")
             toks.append(_Tok("num", lit, i, value))
             i = j
             continue
@@ -163,13 +179,13 @@ def _tokenize(text: str) -> list[_Tok]:
             word = m.group(0)
             if word.startswith("_"):
                 raise _err(
-                    f"name '{word}' at position {i + 1} is not allowed: names must start with a letter"
+                    f"name '{_short(word)}' at position {i + 1} is not allowed: names must start with a letter"
                 )
             if word.lower() in ("nan", "inf", "infinity"):
                 raise _err(
                     f"'{word}' at position {i + 1} is not allowed: NaN and infinite values cannot appear in an expression"
                 )
-            if keyword.iskeyword(word) or keyword.issoftkeyword(word):
+            if keyword.iskeyword(word):
                 raise _err(
                     f"'{word}' at position {i + 1} is a reserved word and not allowed; allowed: {_ALLOWED}"
                 )
@@ -195,13 +211,14 @@ class _Parser:
         self.text = text
         self.toks = _tokenize(text)
         self.i = 0
+        self.nesting = 0  # active unary() calls: every recursion of the grammar passes there
 
     @property
     def tok(self) -> _Tok:
         return self.toks[self.i]
 
     def _found(self, t: _Tok) -> str:
-        return "the end of the text" if t.kind == "end" else f"'{t.text}' at position {t.pos + 1}"
+        return "the end of the text" if t.kind == "end" else f"'{_short(t.text)}' at position {t.pos + 1}"
 
     def _is(self, *ops: str) -> bool:
         return self.tok.kind == "op" and self.tok.text in ops
@@ -237,13 +254,22 @@ class _Parser:
         return node
 
     def unary(self) -> Node:
-        if self._is("-"):
-            self.i += 1
-            return Neg(self.unary())
-        if self._is("+"):
-            self.i += 1
-            return self.unary()
-        return self.power()
+        self.nesting += 1
+        try:
+            if self.nesting > MAX_NESTING:
+                raise _err(
+                    f"expression is nested too deeply at position {self.tok.pos + 1} (more than {MAX_NESTING} "
+                    f"levels of parentheses, signs or exponents); simplify it"
+                )
+            if self._is("-"):
+                self.i += 1
+                return Neg(self.unary())
+            if self._is("+"):
+                self.i += 1
+                return self.unary()
+            return self.power()
+        finally:
+            self.nesting -= 1
 
     def power(self) -> Node:
         base = self.atom()
@@ -263,7 +289,7 @@ class _Parser:
                 return self.call(t)
             if self._is("("):
                 raise _err(
-                    f"unknown function '{t.text}' at position {t.pos + 1}; allowed functions: {', '.join(FUNCTIONS)}"
+                    f"unknown function '{_short(t.text)}' at position {t.pos + 1}; allowed functions: {', '.join(FUNCTIONS)}"
                 )
             if t.text == "s":
                 return S()
@@ -320,9 +346,27 @@ def parse(text: str) -> Node:
     if len(text) > MAX_TEXT:
         raise _err(f"expression is {len(text)} characters long; at most {MAX_TEXT} are allowed")
     try:
-        return _Parser(text).parse()
-    except RecursionError:
+        node = _Parser(text).parse()
+    except RecursionError:  # only when the caller's own stack is already deep
         raise _err("expression is nested too deeply; simplify the parentheses") from None
+    d = depth(node)
+    if d > MAX_DEPTH:
+        raise _err(
+            f"expression is too long: its tree is {d} levels deep, at most {MAX_DEPTH} are allowed; "
+            f"split long sums or products into parameters"
+        )
+    return node
+
+
+def depth(node: Node) -> int:
+    """Number of levels of the tree (a leaf is 1); iterative, so any tree is safe."""
+    best = 0
+    stack = [(node, 1)]
+    while stack:
+        n, d = stack.pop()
+        best = max(best, d)
+        stack.extend((c, d + 1) for c in _children(n))
+    return best
 
 
 # ------------------------------------------------------------------ inspection
@@ -338,21 +382,23 @@ def _children(node: Node) -> tuple:
     return ()
 
 
+def _walk(node: Node):
+    """Every node of the tree, without recursion."""
+    stack = [node]
+    while stack:
+        n = stack.pop()
+        yield n
+        stack.extend(_children(n))
+
+
 def names(node: Node) -> set[str]:
     """Parameter names used in the tree (``s`` excluded)."""
-    if isinstance(node, Name):
-        return {node.id}
-    out: set[str] = set()
-    for c in _children(node):
-        out |= names(c)
-    return out
+    return {n.id for n in _walk(node) if isinstance(n, Name)}
 
 
 def has_s(node: Node) -> bool:
     """Whether the Laplace variable ``s`` occurs in the tree."""
-    if isinstance(node, S):
-        return True
-    return any(has_s(c) for c in _children(node))
+    return any(isinstance(n, S) for n in _walk(node))
 
 
 def _literal_int(node: Node) -> int | None:
@@ -394,7 +440,7 @@ def check(node: Node, known: Any, *, allow_s: bool) -> None:
                 hint = "known names: " + ", ".join(sorted(known))
             else:
                 hint = "no parameters are defined"
-            raise _err(f"unknown name '{nm}'; {hint}")
+            raise _err(f"unknown name '{_short(nm)}'; {hint}")
     if not has_s(node):
         return
     if not allow_s:
@@ -424,6 +470,63 @@ def _check_s(node: Node) -> None:
         return
     for c in _children(node):
         _check_s(c)
+
+
+def domain_guards(node: Node) -> list[tuple[str, Node, str]]:
+    """The ``s``-free sub-expressions whose values must stay inside a domain.
+
+    Parameters
+    ----------
+    node
+        A parsed tree (it may contain ``s``).
+
+    Returns
+    -------
+    list of (kind, sub-tree, role)
+        Innermost first, without repeats. ``kind`` is ``"nonzero"`` (a
+        divisor, or the base of a negative integer power), ``"nonnegative"``
+        (argument of sqrt, base of a positive real power), ``"positive"``
+        (argument of log, base of a negative real power or of a power whose
+        exponent is an expression) or ``"tan"`` (argument of tan, which must
+        keep away from its poles). ``role`` says in words where the
+        sub-tree stands, for messages ("divisor", "sqrt argument", ...).
+    """
+    out: list[tuple[str, Node, str]] = []
+
+    def visit(n: Node) -> None:
+        for c in _children(n):
+            visit(c)
+        guard = None
+        if isinstance(n, Binary) and n.op == "/" and not has_s(n.right):
+            guard = ("nonzero", n.right, "divisor")
+        elif isinstance(n, Power) and not has_s(n.base):
+            k = _literal_int(n.exponent)
+            if k is not None:
+                guard = ("nonzero", n.base, "base of a negative power") if k < 0 else None
+            else:
+                e = _literal_value(n.exponent)
+                if e is not None and e > 0:
+                    guard = ("nonnegative", n.base, "base of a real power")
+                else:
+                    guard = ("positive", n.base, "base of a negative or variable real power")
+        elif isinstance(n, Call) and n.func in ("sqrt", "log", "tan") and not has_s(n.arg):
+            kind = {"sqrt": "nonnegative", "log": "positive", "tan": "tan"}[n.func]
+            guard = (kind, n.arg, f"{n.func} argument")
+        if guard is not None and guard not in out:
+            out.append(guard)
+
+    visit(node)
+    return out
+
+
+def _literal_value(node: Node) -> float | None:
+    """The value of a literal like ``1.5`` or ``-0.5``, else None."""
+    if isinstance(node, Number):
+        return float(node.value)
+    if isinstance(node, Neg):
+        v = _literal_value(node.operand)
+        return None if v is None else -v
+    return None
 
 
 # ------------------------------------------------------------------- printing
@@ -523,6 +626,10 @@ def _eval(node: Node, env: Mapping[str, Any], imode: bool) -> Any:
         return -_eval(node.operand, env, imode)
     if isinstance(node, Binary):
         a = _eval(node.left, env, imode)
+        if imode and node.op == "*" and node.left == node.right:
+            # x*x of one sub-expression is x^2: the interval square is tighter
+            # (never below 0) and still encloses every value
+            return a ** 2
         b = _eval(node.right, env, imode)
         if node.op == "+":
             return a + b

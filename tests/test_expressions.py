@@ -309,3 +309,169 @@ def test_same_degrees_for_floats_arrays_and_intervals(text, deg):
     Ni, Di = iv.stacked_interval(3)
     N, D = ar.stacked(3)
     assert Ni.contains(N).all() and Di.contains(D).all()
+
+
+# ------------------------------------------- review additions: more loops, limits, guards
+MORE_LOOPS = [
+    # nested fractions (a continued fraction of s)
+    ("1/(1 + 1/(1 + 1/(s + a)))", dict(a=1.7)),
+    # powers of sums, and a negative power of a ratio
+    ("(s + a)^3 / ((s + b)^2*(s^2 + c*s + d)^2)", dict(a=1.7, b=0.35, c=2.2, d=0.8)),
+    ("((s + a)/(s + b))^-2 / (s + c)^3", dict(a=1.7, b=0.35, c=2.2)),
+    # a PID with a filtered derivative, the derivative filter time Td/N
+    ("Kp*(1 + 1/(Ti*s) + Td*s/(Td/N*s + 1))", dict(Kp=3.0, Ti=1.5, Td=0.05, N=8.0)),
+    # a sensor lag with a parameter, functions and real powers of parameter sub-expressions
+    ("sqrt(a*b)*s/(s^2 + d*sqrt(c)*s + c) - exp(-b)/(s + a) + a^1.5*log(c)/(tau*s + 1)",
+     dict(a=1.7, b=0.35, c=2.2, d=0.8, tau=0.02)),
+    # different denominators sharing a factor: multiplied, not cancelled (closed-loop modes stay)
+    ("(s^2 + (a + b)*s + a*b)^2/(s + 1)^5 - s/(s + 1)^2", dict(a=1.7, b=0.35)),
+]
+
+
+def _to_sympy(node, syms, s):
+    """The same tree as a sympy expression, numbers as exact rationals of their float values."""
+    if isinstance(node, Number):
+        return sympy.Rational(node.value)
+    if isinstance(node, Name):
+        return syms[node.id]
+    if isinstance(node, S):
+        return s
+    if isinstance(node, Neg):
+        return -_to_sympy(node.operand, syms, s)
+    if isinstance(node, Binary):
+        a, b = _to_sympy(node.left, syms, s), _to_sympy(node.right, syms, s)
+        return {"+": a + b, "-": a - b, "*": a * b, "/": a / b}[node.op]
+    if isinstance(node, Power):
+        return _to_sympy(node.base, syms, s) ** _to_sympy(node.exponent, syms, s)
+    if isinstance(node, Call):
+        return getattr(sympy, node.func)(_to_sympy(node.arg, syms, s))
+    raise TypeError(node)
+
+
+@pytest.mark.parametrize("text,values", MORE_LOOPS)
+def test_three_evaluators_agree_with_sympy(text, values):
+    # reference: sympy's exact rational function (together + cancel), evaluated with 30 digits
+    tree = parse(text)
+    s = sympy.Symbol("s")
+    syms = {k: sympy.Symbol(k) for k in values}
+    V = 4
+    env = {k: v * np.linspace(0.9, 1.1, V) for k, v in values.items()}
+    N, D = evaluate_rational(tree, env).stacked(V)
+    for i in range(V):
+        point = {k: float(env[k][i]) for k in values}
+        ref = _to_sympy(tree, syms, s).subs({syms[k]: sympy.Rational(v) for k, v in point.items()})
+        rn, rd = sympy.fraction(sympy.cancel(sympy.together(ref)))
+        # no cancellation: N/D may carry extra common factors, so compare N*rd - D*rn = 0
+        cross = sympy.Poly(sympy.expand(sympy.Poly(N[i].tolist(), s).as_expr() * rd
+                                        - sympy.Poly(D[i].tolist(), s).as_expr() * rn), s)
+        size = sympy.Poly(sympy.expand(sympy.Poly(N[i].tolist(), s).as_expr() * rd), s)
+        scale = max(abs(float(c)) for c in size.all_coeffs())
+        assert max(abs(float(c)) for c in cross.all_coeffs()) <= 1e-12 * scale
+        for s0 in (0.3 + 1.1j, -2.5 + 0.4j, 7j):
+            want = complex(sympy.N(ref.subs(s, sympy.Float(s0.real, 30) + sympy.I * sympy.Float(s0.imag, 30)), 30))
+            got = np.polyval(N[i], s0) / np.polyval(D[i], s0)
+            assert abs(got - want) <= 1e-11 * abs(want)
+        # the float evaluator gives the same stacks as the array one
+        n1, d1 = evaluate_rational(tree, point).stacked(1)
+        np.testing.assert_allclose(n1[0], N[i], rtol=1e-13, atol=0)
+        np.testing.assert_allclose(d1[0], D[i], rtol=1e-13, atol=0)
+        # and the interval evaluator on a point box encloses them
+        Ni, Di = evaluate_rational(tree, {k: Interval(v) for k, v in point.items()}).stacked_interval(1)
+        assert Ni.contains(N[i]).all() and Di.contains(D[i]).all()
+
+
+FUNC_LOOP = ("sqrt(a*c)*s/(s^2 + d*sqrt(c)*s + c) + exp(-b*c)*log(a + c)/(s + cos(a)^2 + 1)"
+             " + tan(b)*sin(d)/(s + a^1.5 + c^-0.5) + (a*a - 1)/(s + 2)")
+FUNC_BOX = dict(a=(0.5, 2.0), b=(-1.2, 1.2), c=(0.1, 3.0), d=(-4.0, 9.0))
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.lists(st.tuples(st.floats(0, 1), st.floats(0, 1)), min_size=4, max_size=4),
+       st.lists(st.floats(0, 1), min_size=4, max_size=4))
+def test_interval_coefficients_enclose_points_with_functions(corners, t):
+    # sub-boxes of FUNC_BOX, and a point inside each: the point's coefficients lie in the enclosure
+    tree = parse(FUNC_LOOP)
+    boxes, point = {}, {}
+    for (name, (lo, hi)), (u, v), ti in zip(FUNC_BOX.items(), corners, t):
+        u, v = sorted((u, v))
+        a, b = lo + (hi - lo) * u, lo + (hi - lo) * v
+        boxes[name] = Interval(a, b)
+        point[name] = min(max(a + ti * (b - a), a), b)
+    Ni, Di = evaluate_rational(tree, boxes).stacked_interval(1)
+    N, D = evaluate_rational(tree, point).stacked(1)
+    assert N.shape[1] == Ni.shape[1] and D.shape[1] == Di.shape[1]
+    assert Ni.contains(N).all() and Di.contains(D).all()
+
+
+def test_same_subexpression_squared_in_interval_mode():
+    # x*x of one sub-expression never dips below 0 (the naive product of [-1, 2] by itself would)
+    enc = evaluate(parse("(a - 1)*(a - 1)"), {"a": Interval(0.0, 3.0)})
+    assert float(enc.lo) == 0.0 and float(enc.hi) >= 4.0
+    enc = evaluate(parse("a*b"), {"a": Interval(-1.0, 2.0), "b": Interval(-1.0, 2.0)})
+    assert float(enc.lo) <= -2.0  # different names: independent, the full product range
+
+
+def test_size_limits_give_clean_errors():
+    with pytest.raises(ExpressionError, match="nested too deeply"):
+        parse("(" * 150 + "a" + ")" * 150)
+    with pytest.raises(ExpressionError, match="nested too deeply"):
+        parse("-" * 150 + "a")
+    with pytest.raises(ExpressionError, match="too long: its tree is 400 levels deep"):
+        parse("+".join(["a"] * 400))
+    with pytest.raises(ExpressionError) as info:
+        parse("a" * 5000 + " b")
+    assert len(str(info.value)) < 300  # the long name is cut in the message
+
+
+def _at_depth(n, fn):
+    return fn() if n == 0 else _at_depth(n - 1, fn)
+
+
+@pytest.mark.parametrize("text", [
+    "+".join(["a*s"] * 240),
+    "/".join(["(s + a)"] * 40) + "+" + "+".join(["a"] * 200),
+    "a^" * 99 + "a",
+    "-" * 99 + "a",
+    "sqrt(" * 99 + "a" + ")" * 99,
+    "(" * 99 + "s + a" + ")" * 99,
+])
+def test_largest_allowed_expressions_evaluate_on_a_deep_stack(text):
+    # within the limits, every evaluator works even when the caller is 300 frames deep
+    tree = parse(text)
+
+    def work():
+        check(tree, {"a"}, allow_s=True)
+        evaluate_rational(tree, {"a": np.array([1.5, 2.0])})
+        evaluate_rational(tree, {"a": Interval(np.array([1.5]), np.array([2.0]))})
+        to_text(tree)
+        names(tree)
+        hash(tree)
+        return True
+
+    with np.errstate(all="ignore"):
+        assert _at_depth(300, work)
+
+
+def test_soft_keywords_and_case_of_reserved_words():
+    assert parse("type + match") == Binary("+", Name("type"), Name("match"))
+    for word in ("Inf", "NAN", "infinity", "lambda", "import"):
+        with pytest.raises(ExpressionError):
+            parse(f"{word} + 1")
+
+
+def test_domain_guards():
+    from sweep.expressions import domain_guards
+
+    got = [(k, to_text(n), role) for k, n, role in domain_guards(parse(
+        "a/(b - c) + sqrt(a)*log(b)/s + a^-2 + b^1.5 + c^-0.5 + a^b + tan(c/2) + 1/(s + a)"))]
+    assert got == [
+        ("nonzero", "b - c", "divisor"),
+        ("nonnegative", "a", "sqrt argument"),
+        ("positive", "b", "log argument"),
+        ("nonzero", "a", "base of a negative power"),
+        ("nonnegative", "b", "base of a real power"),
+        ("positive", "c", "base of a negative or variable real power"),
+        ("positive", "a", "base of a negative or variable real power"),
+        ("nonzero", "2", "divisor"),
+        ("tan", "c/2", "tan argument"),
+    ]
