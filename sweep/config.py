@@ -108,6 +108,7 @@ class Config:
 
 import difflib  # noqa: E402
 import hashlib  # noqa: E402
+import keyword  # noqa: E402
 import re  # noqa: E402
 import tomllib  # noqa: E402
 
@@ -119,8 +120,10 @@ _PLANT_KEYS = ("transfer", "num", "den")
 _LOOP_KEYS = ("controller", "sensor", "feedback", "gain_range", "operating_gain")
 _SWEEP_KEYS = ("designs", "samples", "levels", "seed", "chunk_size", "max_variants")
 _LOCUS_KEYS = ("points", "keep")
-_RESERVED_NAMES = ("s", "sqrt", "exp", "log", "sin", "cos", "tan", "k", "inf", "nan")
+_RESERVED_NAMES = ("s", "sqrt", "exp", "log", "sin", "cos", "tan", "k")
 _NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+# the locus grid is per variant; beyond this the run only burns memory
+MAX_LOCUS_POINTS = 100_000
 
 
 def _suggest(word: str, choices: Any) -> str:
@@ -156,7 +159,7 @@ class _Reader:
         if isinstance(value, str) and allow_inf and value.strip().lower() in ("inf", "+inf", "infinity"):
             return math.inf
         if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise self.fail(field_name, f"expected a number, got {_kind(value)} {value!r}")
+            raise self.fail(field_name, f"expected a number, got {_kind(value)} {_show(value)}")
         f = float(value)
         if math.isnan(f):
             raise self.fail(field_name, "NaN is not allowed; give a number")
@@ -166,15 +169,21 @@ class _Reader:
 
     def integer(self, value: Any, field_name: str, *, minimum: int) -> int:
         if isinstance(value, bool) or not isinstance(value, int):
-            raise self.fail(field_name, f"expected a whole number, got {_kind(value)} {value!r}")
+            raise self.fail(field_name, f"expected a whole number, got {_kind(value)} {_show(value)}")
         if value < minimum:
             raise self.fail(field_name, f"must be at least {minimum}, got {value}")
         return int(value)
 
     def string(self, value: Any, field_name: str) -> str:
         if not isinstance(value, str):
-            raise self.fail(field_name, f"expected a string, got {_kind(value)} {value!r}")
+            raise self.fail(field_name, f"expected a string, got {_kind(value)} {_show(value)}")
         return value
+
+
+def _show(value: Any, limit: int = 40) -> str:
+    """repr of a value, cut to `limit` characters for a one-line message."""
+    text = repr(value)
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 def _kind(value: Any) -> str:
@@ -188,7 +197,7 @@ def _kind(value: Any) -> str:
         return "a list"
     if isinstance(value, dict):
         return "a table"
-    return type(value).__name__
+    return {"date": "a date", "datetime": "a date-time", "time": "a time"}.get(type(value).__name__, type(value).__name__)
 
 
 def _tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> tuple[float, float]:
@@ -209,20 +218,20 @@ def _tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> tuple
 
 def _one_tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> float:
     if isinstance(value, str):
-        text = value.strip().lstrip("+-").strip()
+        text = value.strip().lstrip("+-\u00b1").strip()
         if not text.endswith("%"):
-            raise r.fail(field_name, f"tolerance string {value!r} must end in '%' (e.g. \"10%\"); give an absolute tolerance as a number")
+            raise r.fail(field_name, f"tolerance string {_show(value)} must end in '%' (e.g. \"10%\"); give an absolute tolerance as a number")
         try:
             pct = float(text[:-1])
         except ValueError:
-            raise r.fail(field_name, f"cannot read {value!r} as a percentage; write e.g. \"10%\"") from None
+            raise r.fail(field_name, f"cannot read {_show(value)} as a percentage; write e.g. \"10%\"") from None
         if not math.isfinite(pct):
-            raise r.fail(field_name, f"tolerance {value!r} is not a finite percentage")
+            raise r.fail(field_name, f"tolerance {_show(value)} is not a finite percentage")
         if pct < 0:
             raise r.fail(field_name, "tolerance must not be negative")
         if pct >= 100:
             raise r.fail(field_name, f"a tolerance of {pct:g}% lets the value reach or cross zero; give explicit low/high bounds if that is intended")
-        return abs(nominal) * pct / 100.0
+        return abs(nominal) * (pct / 100.0)
     t = r.number(value, field_name)
     if t < 0:
         raise r.fail(field_name, "tolerance must not be negative; give the +- half-width")
@@ -232,9 +241,11 @@ def _one_tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> f
 def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
     where = f"parameters.{name}"
     if not _NAME_RE.match(name):
-        raise r.fail(where, f"parameter name {name!r} must start with a letter and use only letters, digits and _")
+        raise r.fail(where, f"parameter name {_show(name)} must start with a letter and use only letters, digits and _ (ASCII)")
     if name in _RESERVED_NAMES:
         raise r.fail(where, f"'{name}' is reserved (s is the Laplace variable, k the loop gain, the rest are functions); rename the parameter")
+    if name.lower() in ("nan", "inf", "infinity") or keyword.iskeyword(name):
+        raise r.fail(where, f"'{name}' is a reserved word of the expression language; rename the parameter")
     if not isinstance(spec, dict):
         # A bare number is a fixed parameter.
         value = r.number(spec, where)
@@ -272,6 +283,8 @@ def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
         if dist == "normal":
             raise r.fail(where, "a normal distribution needs a tolerance (tol is 3 sigma); add tol = \"5%\" or similar")
         return Parameter(name, nominal, nominal, nominal, "fixed", units)
+    if not (math.isfinite(low) and math.isfinite(high)):
+        raise r.fail(f"{where}.tol", f"the bounds [{low:g}, {high:g}] overflow floating point; give a smaller nominal or tolerance")
     if low == high:
         return Parameter(name, nominal, nominal, nominal, "fixed", units)
     return Parameter(name, nominal, low, high, dist, units)
@@ -324,7 +337,7 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise r.fail(None, f"not valid TOML ({exc}); check the syntax near that line") from None
+        raise _toml_error(r, text, exc) from None
     r.known_keys(data, _TOP_KEYS, "")
 
     title = r.string(data.get("title", ""), "title") if "title" in data else ""
@@ -406,6 +419,8 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
     r.known_keys(locus_raw, _LOCUS_KEYS, "locus")
     ldefaults = LocusSettings()
     points = r.integer(locus_raw.get("points", ldefaults.points), "locus.points", minimum=3)
+    if points > MAX_LOCUS_POINTS:
+        raise r.fail("locus.points", f"{points} gains is more than the {MAX_LOCUS_POINTS} allowed; a few hundred to a few thousand draw a smooth locus")
     keep_text = r.string(locus_raw.get("keep", ldefaults.keep), "locus.keep")
     keep, keep_count = _keep(r, keep_text)
 
@@ -432,13 +447,39 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
     return config
 
 
+_TOML_HINTS = (
+    ("Cannot overwrite a value", "a key is given twice (or a table and a key share a name); keep one"),
+    ("Cannot declare", "a table is declared twice; merge the two [sections]"),
+    ("Cannot mutate", "a table is declared twice; merge the two [sections]"),
+    ("Invalid value", "strings need quotes, numbers are written 1.5 or 2e-3, lists [a, b]"),
+    ("Unclosed", "close the string, list or table"),
+    ("Invalid statement", "each line is key = value or [section]"),
+    ("Expected '=' after a key", "each line is key = value or [section]"),
+)
+
+
+def _toml_error(r: _Reader, text: str, exc: Exception) -> InputError:
+    """One line for a TOML syntax error: the line number, the line itself and a hint."""
+    message = str(exc)
+    m = re.search(r"\(at line (\d+), column (\d+)\)", message)
+    reason = re.sub(r"\s*\((at line \d+, column \d+|at end of document)\)", "", message).strip()
+    hint = next((h for key, h in _TOML_HINTS if reason.startswith(key)), "check the syntax of that line")
+    if m is None:
+        return r.fail(None, f"not valid TOML ({reason}, at the end of the file); {hint}")
+    number = int(m.group(1))
+    lines = text.splitlines()
+    line = lines[number - 1].strip() if 0 < number <= len(lines) else ""
+    shown = f": {_show(line, 60)}" if line else ""
+    return r.fail(f"line {number}", f"not valid TOML ({reason}, column {m.group(2)}{shown}); {hint}")
+
+
 def _keep(r: _Reader, text: str) -> tuple[str, int]:
     if text in ("all", "none", "corners"):
         return text, 0
     m = re.fullmatch(r"random:(\d+)", text.strip())
     if m and int(m.group(1)) > 0:
         return "random", int(m.group(1))
-    raise r.fail("locus.keep", f"unknown keep '{text}'; expected all, none, corners or \"random:N\" with N > 0")
+    raise r.fail("locus.keep", f"unknown keep {_show(text)}; expected all, none, corners or \"random:N\" with N > 0")
 
 
 def load_config(path: Any) -> Config:
@@ -471,4 +512,6 @@ def load_config(path: Any) -> Config:
         text = raw.decode("utf-8")
     except UnicodeDecodeError:
         raise InputError("not a UTF-8 text file; save the config as UTF-8 TOML", file=source) from None
+    if text.startswith("\ufeff"):  # a byte-order mark, as some editors write: not part of the TOML
+        text = text[1:]
     return parse_config(text, source=source, raw=raw)

@@ -24,6 +24,8 @@ from .warnings import CancellationWarning
 # How hard `validate` tries to prove that a leading coefficient keeps its sign.
 _MAX_BOXES = 4096
 _MAX_ROUNDS = 14
+# Beyond this many poles, coefficients in powers of s carry no useful digits.
+MAX_ORDER = 50
 
 
 @dataclass(frozen=True)
@@ -33,21 +35,32 @@ class _Part:
     label: str  # for messages
     field: str  # config field that defines it
     build: Callable[[Mapping[str, Any]], Rational]
+    exprs: tuple[tuple[str, Any], ...] = ()  # (field, tree) of every expression of the factor
+    num_fields: tuple[str, ...] | None = None  # per-coefficient fields of num/den lists
+    den_fields: tuple[str, ...] | None = None
 
 
 def _parts(config: Config) -> tuple[_Part, ...]:
     """The three factors, each as a function of an environment of parameter values."""
     if config.transfer is not None:
-        plant = _Part("plant", "plant.transfer", lambda env: expressions.evaluate_rational(config.transfer, env))
+        plant = _Part("plant", "plant.transfer", lambda env: expressions.evaluate_rational(config.transfer, env),
+                      (("plant.transfer", config.transfer),))
     else:
         num, den = config.num, config.den
+        num_fields = tuple(f"plant.num[{i}]" for i in range(len(num)))
+        den_fields = tuple(f"plant.den[{i}]" for i in range(len(den)))
         plant = _Part(
             "plant",
             "plant.den[0]",
             lambda env: Rational([expressions.evaluate(c, env) for c in num], [expressions.evaluate(c, env) for c in den]),
+            tuple(zip(num_fields, num)) + tuple(zip(den_fields, den)),
+            num_fields,
+            den_fields,
         )
-    controller = _Part("controller", "loop.controller", lambda env: expressions.evaluate_rational(config.controller, env))
-    sensor = _Part("sensor", "loop.sensor", lambda env: expressions.evaluate_rational(config.sensor, env))
+    controller = _Part("controller", "loop.controller", lambda env: expressions.evaluate_rational(config.controller, env),
+                       (("loop.controller", config.controller),))
+    sensor = _Part("sensor", "loop.sensor", lambda env: expressions.evaluate_rational(config.sensor, env),
+                   (("loop.sensor", config.sensor),))
     return plant, controller, sensor
 
 
@@ -63,6 +76,13 @@ def _as_stack(coefs: list, count: int) -> np.ndarray:
     """Coefficient list (floats or arrays (V,)) -> float64 array (V, len)."""
     cols = [np.broadcast_to(np.asarray(c, dtype=float), (count,)) for c in coefs]
     return np.stack(cols, axis=1) if cols else np.zeros((count, 1))
+
+
+def _pad(stack: np.ndarray, width: int) -> np.ndarray:
+    """Zero columns on the left up to `width` columns (trimmed leading zeros back)."""
+    if stack.shape[1] >= width:
+        return stack
+    return np.concatenate([np.zeros((stack.shape[0], width - stack.shape[1])), stack], axis=1)
 
 
 def _count(values: Mapping[str, np.ndarray]) -> int:
@@ -204,20 +224,27 @@ def open_loop_degrees(config: Config) -> tuple[int, int]:
 def validate(config: Config) -> None:
     """Check the loop is well formed over the whole tolerance box.
 
-    Checks that the nominal evaluates to finite coefficients, that the loop
-    is proper (no more zeros than poles), that every factor's leading
-    coefficients keep their sign over the box (degree invariance, proven with
-    interval arithmetic and box splitting), and warns about common factors of
-    the nominal N and D.
+    In this order: every division, sqrt, log, real power and tan stays inside
+    its domain at the nominal and over the box (proven with interval
+    arithmetic and box splitting); the nominal evaluates to finite
+    coefficients; the loop is proper (no more zeros than poles); every
+    factor's leading coefficients keep their sign over the box (degree
+    invariance, proven the same way). Finally it warns about factors common
+    to the nominal N and D.
 
     Raises
     ------
     InputError
-        Naming the config field whose expression fails.
+        Naming the config field whose expression fails, the offending point
+        and what to do.
     """
     fail = lambda field, msg: InputError(msg, file=config.source, field=field)  # noqa: E731
     nominal = {p.name: np.array([p.nominal]) for p in config.parameters}
     parts = _parts(config)
+    for part in parts:
+        for field_name, tree in part.exprs:
+            for kind, guard, role in expressions.domain_guards(tree):
+                _check_guard(config, field_name, kind, guard, role)
     for part in parts:
         with np.errstate(all="ignore"):
             try:
@@ -226,7 +253,7 @@ def validate(config: Config) -> None:
                 raise fail(part.field, f"cannot evaluate at the nominal values ({exc}); check the expression") from None
         num, den = _as_stack(r.num, 1), _as_stack(r.den, 1)
         if not (np.all(np.isfinite(num)) and np.all(np.isfinite(den))):
-            raise fail(part.field, "evaluates to an infinite or undefined coefficient at the nominal values (division by zero, or log/sqrt of a non-positive value); check the expression")
+            raise fail(part.field, f"the {part.label} evaluates to an infinite or undefined coefficient at the nominal values (a number too large for floating point?); check the expression")
         if not np.any(num != 0):
             raise fail(part.field, "the numerator is zero at the nominal values, so the loop carries no signal; check the expression")
         if not np.any(den != 0):
@@ -243,6 +270,8 @@ def validate(config: Config) -> None:
         )
     if n == 0:
         raise fail("plant", "the loop has no poles (a pure gain); there is no locus to compute, add the plant's dynamics")
+    if n > MAX_ORDER:
+        raise fail("plant", f"the loop has {n} poles, more than the {MAX_ORDER} supported (polynomial coefficients in powers of s lose their accuracy); reduce the model order")
 
     for part, (dm, dn) in zip(parts, degrees):
         _check_leading(config, part, dm, dn)
@@ -250,85 +279,48 @@ def validate(config: Config) -> None:
     _warn_cancellation(config)
 
 
-def _check_leading(config: Config, part: _Part, dm: int, dn: int) -> None:
-    """Prove the leading coefficients of a factor keep their nominal sign over the box."""
-    uncertain = config.uncertain
-    if not uncertain:
-        return
-    names = [p.name for p in uncertain]
-    lo0 = np.array([p.low for p in uncertain])
-    hi0 = np.array([p.high for p in uncertain])
+def _short(text: str, limit: int = 60) -> str:
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def _where(names: list[str], x: np.ndarray) -> str:
+    return ", ".join(f"{nm}={v:.6g}" for nm, v in zip(names, x))
+
+
+def _prove(
+    lo0: np.ndarray,
+    hi0: np.ndarray,
+    point_ok: Callable[[np.ndarray], np.ndarray],
+    box_ok: Callable[[np.ndarray, np.ndarray], np.ndarray],
+) -> tuple[str, np.ndarray | None]:
+    """Show a property over the box ``[lo0, hi0]`` by interval bounds and bisection.
+
+    Each round tests the midpoint and the lowest and highest corner of every
+    open box (a failing point refutes the property), then the interval test
+    of every open box; boxes it cannot settle are split along their widest
+    relative side.
+
+    Returns
+    -------
+    ("proven", None), ("refuted", point) or ("inconclusive", midpoint of an open box).
+    """
     scale = np.where(hi0 > lo0, hi0 - lo0, 1.0)
-
-    def enclosure(lo: np.ndarray, hi: np.ndarray) -> tuple[Interval, Interval, np.ndarray]:
-        env, count = _box_env(config, dict(zip(names, lo.T)), dict(zip(names, hi.T)))
-        with np.errstate(all="ignore"):
-            r = part.build(env)
-            num = _interval_stack(r.num, count)
-            den = _interval_stack(r.den, count)
-        # Structural zeros above the nominal degree must enclose only zero-ish values.
-        extra = np.zeros(count, dtype=bool)
-        for stack, deg in ((num, dm), (den, dn)):
-            width = stack.lo.shape[1]
-            if width > deg + 1:
-                lead = Interval(stack.lo[:, : width - deg - 1], stack.hi[:, : width - deg - 1])
-                extra |= np.any(np.maximum(np.abs(lead.lo), np.abs(lead.hi)) > 1e-300, axis=1)
-        finite = np.all(np.isfinite(num.lo) & np.isfinite(num.hi), axis=1) & np.all(np.isfinite(den.lo) & np.isfinite(den.hi), axis=1)
-        return num[:, width_index(num, dm)], den[:, width_index(den, dn)], extra | ~finite
-
-    def points(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        env = {p.name: np.full(x.shape[0], p.nominal) for p in config.parameters}
-        env.update(dict(zip(names, x.T)))
-        with np.errstate(all="ignore"):
-            r = part.build(env)
-        num = _as_stack(r.num, x.shape[0])
-        den = _as_stack(r.den, x.shape[0])
-        extra = np.zeros(x.shape[0], dtype=bool)
-        if num.shape[1] > dm + 1:
-            extra |= np.any(num[:, : num.shape[1] - dm - 1] != 0, axis=1)
-        if den.shape[1] > dn + 1:
-            extra |= np.any(den[:, : den.shape[1] - dn - 1] != 0, axis=1)
-        finite = np.all(np.isfinite(num), axis=1) & np.all(np.isfinite(den), axis=1)
-        return num[:, -(dm + 1)], den[:, -(dn + 1)], extra, finite
-
-    nom_num, nom_den, _, _ = points(np.array([[p.nominal for p in uncertain]]))
-    signs = (np.sign(nom_num[0]), np.sign(nom_den[0]))
     lo, hi = lo0[None, :], hi0[None, :]
     for _round in range(_MAX_ROUNDS):
-        mid = 0.5 * (lo + hi)
-        pn, pd, pextra, pfinite = points(mid)
-        if not np.all(pfinite):
-            i = int(np.flatnonzero(~pfinite)[0])
-            where = ", ".join(f"{nm}={v:.6g}" for nm, v in zip(names, mid[i]))
-            raise InputError(
-                f"the {part.label} is undefined or infinite inside the tolerance box (at {where}): a division by zero, or sqrt/log of a non-positive value; narrow the tolerances or restate the expression",
-                file=config.source,
-                field=part.field,
-            )
-        bad_point = (np.sign(pn) != signs[0]) | (np.sign(pd) != signs[1]) | pextra
-        if np.any(bad_point):
-            i = int(np.flatnonzero(bad_point)[0])
-            where = ", ".join(f"{nm}={v:.6g}" for nm, v in zip(names, mid[i]))
-            raise InputError(
-                f"the {part.label}'s leading coefficient changes sign or vanishes inside the tolerance box (at {where}), so the loop's order changes; narrow the tolerances or restate the model",
-                file=config.source,
-                field=part.field,
-            )
+        pts = np.concatenate([0.5 * (lo + hi), lo, hi])
+        ok = point_ok(pts)
+        if not np.all(ok):
+            return "refuted", pts[int(np.flatnonzero(~ok)[0])]
         try:
-            en, ed, extra = enclosure(lo, hi)
-            undecided = (
-                extra
-                | ~_sign_kept(en, signs[0])
-                | ~_sign_kept(ed, signs[1])
-            )
+            with np.errstate(all="ignore"):
+                undecided = ~box_ok(lo, hi)
         except (ValueError, ArithmeticError):
             undecided = np.ones(lo.shape[0], dtype=bool)
         if not np.any(undecided):
-            return
+            return "proven", None
         lo, hi = lo[undecided], hi[undecided]
         if 2 * lo.shape[0] > _MAX_BOXES:
             break
-        # Split every undecided box along its widest relative side.
         axis = np.argmax((hi - lo) / scale, axis=1)
         rows = np.arange(lo.shape[0])
         cut = 0.5 * (lo[rows, axis] + hi[rows, axis])
@@ -337,10 +329,187 @@ def _check_leading(config: Config, part: _Part, dm: int, dn: int) -> None:
         lo_b, hi_b = lo.copy(), hi.copy()
         lo_b[rows, axis] = cut
         lo, hi = np.concatenate([lo_a, lo_b]), np.concatenate([hi_a, hi_b])
+    return "inconclusive", 0.5 * (lo[0] + hi[0])
+
+
+def _relevant(config: Config, trees: Any) -> list:
+    """The uncertain parameters that occur in the given trees, in config order."""
+    used: set[str] = set()
+    for tree in trees:
+        used |= expressions.names(tree)
+    return [p for p in config.uncertain if p.name in used]
+
+
+def _point_env(config: Config, names: list[str], x: np.ndarray) -> dict:
+    env = {p.name: np.full(x.shape[0], p.nominal) for p in config.parameters}
+    env.update(dict(zip(names, x.T)))
+    return env
+
+
+_GUARD_NEEDS = {
+    "nonzero": "stay away from 0",
+    "nonnegative": "stay at or above 0",
+    "positive": "stay above 0",
+    "tan": "keep away from the poles of tan (pi/2 + n pi)",
+}
+
+
+def _check_guard(config: Config, field_name: str, kind: str, guard: Any, role: str) -> None:
+    """Prove that an s-free sub-expression stays inside its domain over the box."""
+    text = _short(expressions.to_text(guard))
+    with np.errstate(all="ignore"):
+        v0 = float(np.asarray(expressions.evaluate(guard, config.nominal_values()), dtype=float).reshape(-1)[0])
+    sign0 = np.sign(v0)
+
+    def value_ok(v: np.ndarray) -> np.ndarray:
+        v = np.asarray(v, dtype=float)
+        if kind == "nonzero":
+            return np.isfinite(v) & (np.sign(v) == sign0) & (v != 0)
+        if kind == "nonnegative":
+            return np.isfinite(v) & (v >= 0)
+        if kind == "positive":
+            return np.isfinite(v) & (v > 0)
+        return np.isfinite(v) & np.isfinite(np.tan(v))
+
+    needs = _GUARD_NEEDS[kind]
+    if not value_ok(np.array([v0]))[0]:
+        raise InputError(f"'{text}' ({role}) must {needs}, but it is {v0:.6g} at the nominal values; check the expression and the nominal values",
+                         file=config.source, field=field_name)
+    params = _relevant(config, [guard])
+    if not params:
+        return
+    names = [p.name for p in params]
+    lo0 = np.array([p.low for p in params])
+    hi0 = np.array([p.high for p in params])
+
+    def point_ok(x: np.ndarray) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            v = expressions.evaluate(guard, _point_env(config, names, x))
+        return value_ok(np.broadcast_to(np.asarray(v, dtype=float), (x.shape[0],)))
+
+    def box_ok(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+        env, count = _box_env(config, dict(zip(names, lo.T)), dict(zip(names, hi.T)))
+        iv = expressions.evaluate(guard, env)
+        if kind == "tan":
+            from .intervals import itan
+
+            iv = itan(iv)
+        l, h = np.broadcast_to(iv.lo, (count,)), np.broadcast_to(iv.hi, (count,))
+        finite = np.isfinite(l) & np.isfinite(h)
+        if kind == "nonzero":
+            return finite & ((l > 0) if sign0 > 0 else (h < 0))
+        if kind == "nonnegative":
+            return finite & (l >= 0)
+        if kind == "positive":
+            return finite & (l > 0)
+        return finite
+
+    status, x = _prove(lo0, hi0, point_ok, box_ok)
+    if status == "proven":
+        return
+    if status == "refuted":
+        with np.errstate(all="ignore"):
+            v = float(np.asarray(expressions.evaluate(guard, _point_env(config, names, x[None, :])), dtype=float).reshape(-1)[0])
+        raise InputError(
+            f"'{text}' ({role}) must {needs}, but it is {v:.6g} at {_where(names, x)} inside the tolerance box "
+            f"({v0:.6g} at the nominal); narrow the tolerances of {', '.join(names)} or restate the expression",
+            file=config.source, field=field_name,
+        )
     raise InputError(
-        f"cannot show that the {part.label}'s leading coefficient keeps its sign over the tolerance box (interval bounds stay inconclusive); narrow the tolerances or restate the expression",
-        file=config.source,
-        field=part.field,
+        f"cannot show that '{text}' ({role}) stays clear over the tolerance box: it must {needs}, and the interval "
+        f"bounds stay inconclusive near {_where(names, x)}; narrow the tolerances of {', '.join(names)} or restate the expression",
+        file=config.source, field=field_name,
+    )
+
+
+def _check_leading(config: Config, part: _Part, dm: int, dn: int) -> None:
+    """Prove the leading coefficients of a factor keep their nominal sign over the box."""
+    params = _relevant(config, [tree for _, tree in part.exprs])
+    if not params:
+        return
+    names = [p.name for p in params]
+    lo0 = np.array([p.low for p in params])
+    hi0 = np.array([p.high for p in params])
+
+    def points(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        with np.errstate(all="ignore"):
+            r = part.build(_point_env(config, names, x))
+        # a leading coefficient that is 0 at every point of the batch was trimmed: put it back
+        num = _pad(_as_stack(r.num, x.shape[0]), dm + 1)
+        den = _pad(_as_stack(r.den, x.shape[0]), dn + 1)
+        extra = np.zeros(x.shape[0], dtype=bool)
+        if num.shape[1] > dm + 1:
+            extra |= np.any(num[:, : num.shape[1] - dm - 1] != 0, axis=1)
+        if den.shape[1] > dn + 1:
+            extra |= np.any(den[:, : den.shape[1] - dn - 1] != 0, axis=1)
+        finite = np.all(np.isfinite(num), axis=1) & np.all(np.isfinite(den), axis=1)
+        return num[:, -(dm + 1)], den[:, -(dn + 1)], extra, finite
+
+    nom = np.array([[p.nominal for p in params]])
+    nom_num, nom_den, _, _ = points(nom)
+    signs = (np.sign(nom_num[0]), np.sign(nom_den[0]))
+
+    def point_ok(x: np.ndarray) -> np.ndarray:
+        pn, pd, extra, finite = points(x)
+        return finite & ~extra & (np.sign(pn) == signs[0]) & (np.sign(pd) == signs[1])
+
+    def box_ok(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+        env, count = _box_env(config, dict(zip(names, lo.T)), dict(zip(names, hi.T)))
+        r = part.build(env)
+        num = _interval_stack(r.num, count)
+        den = _interval_stack(r.den, count)
+        # structural zeros above the nominal degree must enclose only zero-ish values
+        extra = np.zeros(count, dtype=bool)
+        for stack, deg in ((num, dm), (den, dn)):
+            width = stack.lo.shape[1]
+            if width > deg + 1:
+                lead = Interval(stack.lo[:, : width - deg - 1], stack.hi[:, : width - deg - 1])
+                extra |= np.any(np.maximum(np.abs(lead.lo), np.abs(lead.hi)) > 1e-300, axis=1)
+        finite = np.all(np.isfinite(num.lo) & np.isfinite(num.hi), axis=1) & np.all(np.isfinite(den.lo) & np.isfinite(den.hi), axis=1)
+        return (finite & ~extra & _sign_kept(num[:, width_index(num, dm)], signs[0])
+                & _sign_kept(den[:, width_index(den, dn)], signs[1]))
+
+    status, x = _prove(lo0, hi0, point_ok, box_ok)
+    if status == "proven":
+        return
+    if status == "inconclusive":
+        raise InputError(
+            f"cannot show that the {part.label}'s leading coefficients keep their sign over the tolerance box "
+            f"(interval bounds stay inconclusive near {_where(names, x)}); narrow the tolerances of "
+            f"{', '.join(names)} or restate the expression",
+            file=config.source, field=part.field,
+        )
+    pn, pd, extra, finite = points(x[None, :])
+    where = _where(names, x)
+    if not finite[0]:
+        raise InputError(
+            f"the {part.label} is undefined or infinite at {where} inside the tolerance box (a coefficient "
+            f"overflows floating point); narrow the tolerances or restate the expression",
+            file=config.source, field=part.field,
+        )
+    if extra[0]:
+        with np.errstate(all="ignore"):
+            r = part.build(_point_env(config, names, x[None, :]))
+        num_extra = np.any(_as_stack(r.num, 1)[0, : -(dm + 1)] != 0)
+        which, deg = ("numerator", dm) if num_extra else ("denominator", dn)
+        raise InputError(
+            f"the {part.label}'s order changes inside the tolerance box: its {which} has a coefficient above "
+            f"s^{deg} that is 0 at the nominal but not at {where}; restate the model so the nominal has the full "
+            f"order, or narrow the tolerances of {', '.join(names)}",
+            file=config.source, field=part.field,
+        )
+    is_den = np.sign(pd[0]) != signs[1]
+    which, deg, c0, c = ("denominator", dn, nom_den[0], pd[0]) if is_den else ("numerator", dm, nom_num[0], pn[0])
+    fields = part.den_fields if is_den else part.num_fields
+    field_name = part.field
+    if fields is not None:
+        field_name = fields[len(fields) - 1 - deg] if len(fields) > deg else fields[0]
+    effect = "the number of poles would change" if is_den else "a zero would pass through infinity or the gain would change sign"
+    raise InputError(
+        f"the {part.label}'s {which} leading coefficient (of s^{deg}) is {c0:.6g} at the nominal but {c:.6g} at "
+        f"{where}: it reaches 0 or changes sign inside the tolerance box, so {effect}; narrow the tolerances of "
+        f"{', '.join(names)} or restate the model",
+        file=config.source, field=field_name,
     )
 
 
@@ -355,15 +524,50 @@ def _sign_kept(iv: Interval, sign: float) -> np.ndarray:
     return ok & ((lo > 0) if sign > 0 else (hi < 0))
 
 
+# A root shared by N and D within this relative backward error counts as a common factor.
+_COMMON_RTOL = 1e-10
+
+
+def _residual(p: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """Relative backward error |p(z)| / sum |p_i| |z|^i of candidate roots `z`."""
+    n = p.shape[0] - 1
+    powers = np.abs(z)[:, None] ** np.arange(n, -1, -1)[None, :]
+    scale = powers @ np.abs(p)
+    with np.errstate(all="ignore"):
+        return np.abs(np.polyval(p, z)) / np.where(scale > 0, scale, 1.0)
+
+
+def common_roots(num: np.ndarray, den: np.ndarray) -> list[complex]:
+    """Roots shared by two polynomials (highest power first), each listed once.
+
+    A candidate (a root of either) is common when both polynomials vanish
+    there to within a relative backward error of 1e-10. Testing the roots
+    of both sides matters for repeated factors: the computed roots of
+    ``(s + 1)^3`` are off by about 1e-5, but the simple root of the other
+    side is accurate and the cube vanishes there.
+    """
+    zeros = np.roots(num) if num.shape[0] > 1 else np.array([], dtype=complex)
+    poles = np.roots(den) if den.shape[0] > 1 else np.array([], dtype=complex)
+    cands = np.concatenate([poles, zeros]).astype(complex)
+    if cands.size == 0:
+        return []
+    hit = (_residual(num, cands) <= _COMMON_RTOL) & (_residual(den, cands) <= _COMMON_RTOL)
+    # the computed roots of a repeated factor scatter around it, but their mean is accurate
+    clusters: list[list[complex]] = []
+    for z in cands[hit]:
+        for members in clusters:
+            if abs(z - members[0]) <= 1e-4 * max(1.0, abs(members[0])):
+                members.append(complex(z))
+                break
+        else:
+            clusters.append([complex(z)])
+    return [complex(np.mean(members)) for members in clusters]
+
+
 def _warn_cancellation(config: Config) -> None:
     """Warn when the nominal open loop has a factor common to N and D."""
     N, D = assemble(config, config.nominal_values())
-    zeros = np.roots(N[0]) if N.shape[1] > 1 else np.array([])
-    poles = np.roots(D[0]) if D.shape[1] > 1 else np.array([])
-    common = []
-    for z in zeros:
-        if poles.size and np.min(np.abs(poles - z)) <= 1e-7 * max(1.0, abs(z)):
-            common.append(z)
+    common = common_roots(N[0], D[0])
     if common:
         text = ", ".join(_fmt_root(z) for z in common)
         warnings.warn(
@@ -391,4 +595,4 @@ def nominal_parts(config: Config) -> list[tuple[str, np.ndarray, np.ndarray]]:
     return out
 
 
-__all__ = ["assemble", "enclose", "validate", "part_degrees", "open_loop_degrees", "nominal_parts"]
+__all__ = ["assemble", "enclose", "validate", "part_degrees", "open_loop_degrees", "nominal_parts", "common_roots"]

@@ -26,9 +26,18 @@ def check_summary(config: Config) -> dict[str, Any]:
     dict
         ``valid``, ``numerator``, ``denominator``, the analysis fields of the
         nominal loop (DESIGN section 6) and ``estimated_run_seconds``.
+
+    Raises
+    ------
+    InputError
+        When the designs would make more than ``sweep.max_variants`` variants.
     """
+    from . import designs
     from .analysis import analyze
 
+    # refuse here what `sweep run` would refuse (too many variants), so that a
+    # config that passes `check` also starts
+    designs._check_sizes(config)
     N, D = loop.assemble(config, config.nominal_values())
     result = analyze(
         N[0], D[0], feedback=config.feedback, gain_range=config.gain_range, operating_gain=config.operating_gain
@@ -117,7 +126,7 @@ def format_check(config: Config, summary: dict[str, Any]) -> str:
     out: list[str] = []
     out.append(f"{config.title or config.stem}  ({config.source})")
     out.append("")
-    out.append("Parameters")
+    out.append("Parameters" if config.parameters else "Parameters: none (every coefficient is a number; nothing varies)")
     rows = [("name", "nominal", "low", "high", "spread", "dist", "units")]
     for p in config.parameters:
         if p.uncertain:
@@ -125,7 +134,8 @@ def format_check(config: Config, summary: dict[str, Any]) -> str:
             rows.append((p.name, _fmt(p.nominal), _fmt(p.low), _fmt(p.high), spread, p.dist, p.units))
         else:
             rows.append((p.name, _fmt(p.nominal), "", "", "", "fixed", p.units))
-    out.extend(_table(rows))
+    if config.parameters:
+        out.extend(_table(rows))
     out.append("")
     out.append("Nominal open loop  L(s) = k N(s)/D(s), no cancellation")
     for label, num, den in loop.nominal_parts(config):

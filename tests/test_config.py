@@ -11,6 +11,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from sweep.config import load_config, parse_config
@@ -102,7 +103,7 @@ BAD = [
     ("improper", GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'transfer = "(s + a)^2 / (b*s + 1)"'), "improper"),
     ("leading_coef_crosses_zero", GOOD.replace("low = 2.5, high = 3.5", "nominal = 0.5, low = -0.5, high = 1.5").replace("nominal = 3.0, ", ""), "plant.transfer"),
     ("denominator_zero_in_box", GOOD.replace("(b*s + 1)", "((b - 3)*s + 1)"), "plant.transfer"),
-    ("sqrt_negative", GOOD.replace("(b*s + 1)", "(sqrt(b - 3)*s + 1)"), "undefined"),
+    ("sqrt_negative", GOOD.replace("(b*s + 1)", "(sqrt(b - 3)*s + 1)"), "'b - 3' (sqrt argument) must stay at or above 0"),
     ("feedback_word", GOOD + '[loop]\nfeedback = "negativ"\n', "loop.feedback"),
     ("gain_range_shape", GOOD + "[loop]\ngain_range = [0]\n", "loop.gain_range"),
     ("gain_range_order", GOOD + "[loop]\ngain_range = [5, 1]\n", "loop.gain_range"),
@@ -129,6 +130,34 @@ BAD = [
     ("injection_lambda", GOOD.replace("(s + a)", "(s + (lambda: 1)())"), "plant.transfer"),
     ("zero_plant", GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'transfer = "0/(s + a)"'), "plant.transfer"),
     ("pure_gain", GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'transfer = "a*b"'), "plant"),
+    # found in a review as a new user would write them (a = 2 +-10 %, b in [2.5, 3.5])
+    ("duplicate_key", GOOD.replace("[plant]", "a = 3\n[plant]"), "line 6: not valid TOML (Cannot overwrite a value"),
+    ("duplicate_table", GOOD + '[plant]\ntransfer = "1/s"\n', "a table is declared twice"),
+    ("divisor_zero_in_box", GOOD.replace("(s + a)", "(s + 1/(b - 2.8))"), "'b - 2.8' (divisor) must stay away from 0"),
+    ("divisor_zero_at_box_edge", GOOD.replace("(s + a)", "(s + 1/(b - 2.5))"), "it is 0 at b=2.5"),
+    ("log_argument_in_box", GOOD.replace("1/(s*", "log(b - 2.6)/(s*"), "(log argument) must stay above 0"),
+    ("tan_pole_in_box", GOOD.replace("1/(s*", "tan(b/2)/(s*"), "'b/2' (tan argument)"),
+    ("real_power_negative_base", GOOD.replace("1/(s*", "(b - 2.8)^1.5/(s*"), "(base of a real power) must stay at or above 0"),
+    ("leading_zero_at_box_edge", GOOD.replace("low = 2.5", "low = 0.0"), "(of s^3) is 3 at the nominal but 0 at a=1.8, b=0"),
+    ("num_den_leading_vanishes", GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'num = ["1"]\nden = ["b - 3.2", "a", "1"]'), "plant.den[0]: the plant's denominator leading coefficient"),
+    ("num_leading_changes_sign", GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'num = ["b - 2.8", "1"]\nden = ["1", "a", "1"]'), "plant.num[0]: the plant's numerator leading coefficient"),
+    ("tol_overflow", GOOD.replace("nominal = 2.0", "nominal = 1.7e308"), "parameters.a.tol"),
+    ("points_huge", GOOD + "[locus]\npoints = 10000000000\n", "locus.points"),
+    ("keyword_name", GOOD.replace("a = {", "lambda = {").replace("(s + a)", "(s + 1)"), "parameters.lambda"),
+    ("infinity_name", GOOD.replace("a = {", "Infinity = {").replace("(s + a)", "(s + 1)"), "parameters.Infinity"),
+    ("long_sum", GOOD.replace("(s + a)", "(s + " + "+".join(["a"] * 400) + ")"), "too long"),
+    ("deep_nesting", GOOD.replace("(s + a)", "(s + " + "(" * 150 + "a" + ")" * 150 + ")"), "nested too deeply"),
+    ("power_bomb", GOOD.replace("(s + a)", "(s + 9^9^9*a)"), "infinite"),
+    ("order_too_high", GOOD.replace("(b*s + 1)", "(b*s + 1)^60"), "62 poles"),
+    ("unicode_minus", GOOD.replace("(s + a)", "(s \u2212 a)"), "plant.transfer: unexpected"),
+    ("gain_range_string", GOOD + '[loop]\ngain_range = [0, "big"]\n', "loop.gain_range[1]"),
+    ("keep_negative", GOOD + '[locus]\nkeep = "random:-1"\n', "locus.keep"),
+    ("chunk_zero", GOOD + "[sweep]\nchunk_size = 0\n", "sweep.chunk_size"),
+    ("operating_at_range_end", GOOD + "[loop]\ngain_range = [0, 10]\noperating_gain = 10\n", "loop.operating_gain"),
+    ("date_value", GOOD.replace("nominal = 2.0", "nominal = 2024-01-01"), "got a date"),
+    ("empty_file", "", "missing [plant]"),
+    ("sensor_s_in_function", GOOD + '[loop]\nsensor = "1/exp(0.01*s)"\n', "loop.sensor"),
+    ("long_string_value", GOOD.replace("nominal = 2.0", 'nominal = "' + "9" * 5000 + '"'), "..."),
 ]
 
 
@@ -213,5 +242,82 @@ def test_cancellation_warns(tmp_path: Path):
 
 def test_inner_coefficient_undefined_in_box(tmp_path: Path):
     text = GOOD.replace("(s + a)", "(s + 1/(a - 2.1))")
-    with pytest.raises(InputError, match="undefined or infinite"):
+    with pytest.raises(InputError, match=r"'a - 2.1' \(divisor\) must stay away from 0, but it is"):
         parse_config(text, source="x.toml")
+
+
+def test_messages_stay_short(tmp_path: Path):
+    # a pasted blob must not come back whole in the one-line message
+    for label, text, _ in BAD:
+        if label in ("long_sum", "long_string_value"):
+            with pytest.raises(InputError) as info:
+                parse_config(text, source="x.toml")
+            assert len(info.value.line()) < 400, label
+
+
+def test_byte_order_mark_is_accepted(tmp_path: Path):
+    path = tmp_path / "bom.toml"
+    path.write_bytes(b"\xef\xbb\xbf" + GOOD.encode())
+    config = load_config(path)
+    assert config.title == "test loop"
+    assert len(config.sha256) == 64
+
+
+def test_plus_minus_sign_in_tolerance(tmp_path: Path):
+    config = parse_config(GOOD.replace('tol = "10%"', 'tol = "\u00b110 %"'), source="x.toml")
+    assert (config.parameters[0].low, config.parameters[0].high) == pytest.approx((1.8, 2.2))
+
+
+def test_soft_keywords_are_plain_names():
+    # 'type', 'match' and 'case' are only soft keywords in Python; in configs they are ordinary names
+    text = GOOD.replace("a = {", "type = {").replace("(s + a)", "(s + type)")
+    assert parse_config(text, source="x.toml").parameters[0].name == "type"
+
+
+def test_triple_common_factor_warns():
+    # np.roots places the roots of (s + 1)^3 about 1e-5 apart, so a distance test misses them
+    from sweep.warnings import CancellationWarning
+
+    text = '[plant]\ntransfer = "1/(s + 1)^3"\n[loop]\ncontroller = "(s + 1)^3/(s*(s + 10)^3)"\n'
+    with pytest.warns(CancellationWarning, match=r"root -1\)"):
+        parse_config(text, source="x.toml")
+
+
+def test_common_roots_against_sympy_gcd():
+    # reference: the roots of sympy's exact polynomial gcd
+    import sympy
+
+    from sweep.loop import common_roots
+
+    s = sympy.Symbol("s")
+    cases = [
+        ((s + 1) ** 3 * (s + 4), (s + 1) * (s + 2) ** 2 * s),
+        ((s**2 + 2 * s + 5) ** 2, (s**2 + 2 * s + 5) * (s + 3)),
+        ((s + 1) * (s + 2), (s + 3) * (s + 4) * s),
+        (s * (s + 7), s**2 * (s + 1)),
+    ]
+    for a, b in cases:
+        pa = np.array([float(c) for c in sympy.Poly(sympy.expand(a), s).all_coeffs()])
+        pb = np.array([float(c) for c in sympy.Poly(sympy.expand(b), s).all_coeffs()])
+        expected = {complex(r) for r in sympy.Poly(sympy.gcd(a, b), s).all_roots()}
+        got = common_roots(pa, pb)
+        assert len(got) == len(expected), (a, b, got)
+        for r in expected:
+            assert min(abs(g - r) for g in got) < 1e-4
+
+
+def test_guards_pass_when_the_box_is_clear():
+    # divisions, sqrt, log, real powers and tan whose arguments keep clear over the box are fine
+    text = GOOD.replace("1/(s*", "sqrt(b - 2.4)*log(a)*(b - 2.4)^1.5*tan(a/4)/(s*").replace("(s + a)", "(s + 1/(b - 2.4))")
+    parse_config(text, source="x.toml")
+
+
+def test_check_refuses_oversized_sweep(tmp_path: Path):
+    # what `sweep run` would refuse, `sweep check` refuses too: exit 2, one line, nothing written
+    params = "".join(f"p{i} = {{ nominal = 1.0, tol = \"1%\" }}\n" for i in range(25))
+    text = "[parameters]\n" + params + '[plant]\ntransfer = "p0/(s*(s + p1))"\n[sweep]\ndesigns = ["corners"]\n'
+    path = write(tmp_path, text)
+    proc = run_cli("check", str(path), cwd=tmp_path)
+    assert proc.returncode == 2, proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1 and "max_variants" in proc.stderr
+    assert proc.stdout == "" and sorted(os.listdir(tmp_path)) == ["bad.toml"]
