@@ -79,6 +79,8 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Measure variants per second of the analysis and of locus tracing beside a bare eigenvalue pass, and project how many variants fit in 1 and 8 hours.")
     p.add_argument("config", nargs="?", metavar="CONFIG", help="config to measure (default: a built-in degree-6 loop)")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    for p in sub.choices.values():  # accepted after the command too, as the error lines suggest it
+        p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show a full traceback on errors")
     return parser
 
 
@@ -106,6 +108,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("\ninterrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # the reader of our output stopped early (`... | head`): leave quietly
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_FAILURE
     except SweepError as exc:
         if args.debug:
             raise

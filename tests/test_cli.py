@@ -63,3 +63,57 @@ def test_check_json_classic_cubic(tmp_path: Path):
     assert data["crossing_frequency"] == pytest.approx(2 ** 0.5, rel=1e-12)
     assert data["stable_intervals"] == [[0.0, pytest.approx(6.0, rel=1e-12)]]
     assert data["asymptotes"]["centroid"] == pytest.approx(-1.0)
+
+
+TANK = """title = "Mixing tank level"
+[parameters]
+A = { nominal = 2.0, tol = "10%", units = "m^2" }
+q = { nominal = 0.3, low = 0.25, high = 0.4, units = "m^3/s" }
+[plant]
+num = ["q", "1"]
+den = ["A", "A*q + 1", "q"]
+[loop]
+controller = "(s + 2)/(s + 5)"
+feedback = "positive"
+gain_range = [0, 10]
+"""
+
+
+def test_check_positive_feedback_coefficient_lists(tmp_path: Path):
+    # P(s, k) = D - k N = 2 s^3 + (11.6 - 0.3 k) s^2 + (8.3 - 1.6 k) s + (1.5 - 2 k) at the nominal.
+    # Hurwitz for a cubic (textbook, from memory): all coefficients > 0 and a2 a1 > a3 a0. The constant
+    # term vanishes first, at k = 0.75 (a real root through the origin, crossing frequency 0).
+    cfg = tmp_path / "tank.toml"
+    cfg.write_text(TANK)
+    proc = sweep("check", str(cfg), "--json")
+    assert proc.returncode == 0, proc.stderr
+    data = json.loads(proc.stdout)
+    for field in CHECK_FIELDS:
+        assert field in data, field
+    assert data["numerator"] == pytest.approx([0.3, 1.6, 2.0])
+    assert data["denominator"] == pytest.approx([2.0, 11.6, 8.3, 1.5])
+    assert data["critical_gain"] == pytest.approx(0.75, rel=1e-12)
+    assert data["crossing_frequency"] == 0
+    assert data["stable_intervals"] == [[0.0, pytest.approx(0.75, rel=1e-12)]]
+    assert data["asymptotes"]["angles_deg"] == [0.0]  # positive feedback: the 0-degree locus
+    proc = sweep("check", str(cfg))
+    assert proc.returncode == 0, proc.stderr
+    text = proc.stdout
+    for needle in ("m^3/s", "0.25", "0.4", "-16.7/+33.3 %", "feedback positive", "N(s) = 0.3*s^2 + 1.6*s + 2",
+                   "D(s) = 2*s^3 + 11.6*s^2 + 8.3*s + 1.5", "critical gain       0.75"):
+        assert needle in text, needle
+
+
+def test_check_without_parameters_and_debug_after_the_command(tmp_path: Path):
+    cfg = tmp_path / "bare.toml"
+    cfg.write_text('[plant]\ntransfer = "(s + 1)/(s^2 + 0.4*s + 4)"\n')
+    proc = sweep("check", str(cfg))
+    assert proc.returncode == 0, proc.stderr
+    assert "Parameters: none" in proc.stdout
+    bad = tmp_path / "bad.toml"
+    bad.write_text('[plant]\ntransfer = "1/(s + q)"\n')
+    proc = sweep("check", str(bad), "--debug")
+    assert proc.returncode != 0 and "Traceback" in proc.stderr  # --debug is honoured after the command
+    proc = sweep("check", str(bad))
+    assert proc.returncode == 2 and "Traceback" not in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1 and "plant.transfer" in proc.stderr
