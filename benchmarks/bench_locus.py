@@ -9,8 +9,10 @@ log-spaced gain grid, three ways, side by side in one run:
 * ``eig + match``  the same plus optimal matching to a prediction of every
                    branch (``sweep.locus.trace(method="eig")``): the fair
                    baseline, since continuous branches are what is needed;
-* ``continuation`` ``sweep.locus.trace`` (predictor, vectorised Newton,
-                   eigenvalue fall back where in doubt).
+* ``continuation`` ``sweep.locus.trace`` (predictor, Newton, eigenvalue
+                   fall back where in doubt; compiled, one variant at a time);
+* ``chunk``        ``sweep.locus.trace_chunk`` with no kept loci: the same
+                   tracing as a sweep runs it (envelope only, no (V, G, n) array).
 
 Accuracy: the largest distance between the continuation roots and the
 baseline eigenvalues after optimal matching at each gain, relative to the
@@ -118,8 +120,11 @@ def main(argv=None) -> None:
     print(f"{args.variants} variants x {args.gains} gains, numpy {np.__version__}")
     head = (f"{'deg':>3} {'eig only s':>11} {'eig+match s':>12} {'contin. s':>10} "
             f"{'x vs eig+match':>15} {'x vs eig only':>14} {'fallback %':>11} "
-            f"{'newton it':>9} {'max rel dev':>12}")
+            f"{'newton it':>9} {'max rel dev':>12} {'chunk s':>8} {'x chunk vs eig only':>20}")
     print(head)
+    # compile (or load from numba's cache) before timing anything
+    Nw, Dw = family(4, 4)
+    locus.trace(Nw, Dw, sigma=1, gains=np.geomspace(1e-2, 1e2, 5))
     for deg in args.degrees:
         N, D = family(deg, args.variants)
         nom_N, nom_D = family(deg, 1, seed=99)
@@ -130,11 +135,15 @@ def main(argv=None) -> None:
         st: dict = {}
         t_cont, r_cont = timed(locus.trace, N, D, sigma=1, gains=gains, stats=st)
         dev = matched_deviation(r_cont, r_base)
+        del r_base, r_cont
+        t_chunk, _ = timed(locus.trace_chunk, N, D, sigma=1, gains=gains,
+                           keep=np.zeros(args.variants, bool))
         steps = st["steps"] * args.variants
         print(f"{deg:>3} {t_eig:>11.2f} {t_base:>12.2f} {t_cont:>10.2f} "
               f"{t_base / t_cont:>15.2f} {t_eig / t_cont:>14.2f} "
               f"{100 * st['fallback_variant_steps'] / steps:>11.3f} "
-              f"{st['newton_variant_iterations'] / steps:>9.2f} {dev:>12.2e}")
+              f"{st['newton_variant_iterations'] / steps:>9.2f} {dev:>12.2e} "
+              f"{t_chunk:>8.2f} {t_eig / t_chunk:>20.2f}")
 
 
 if __name__ == "__main__":

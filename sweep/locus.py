@@ -25,8 +25,6 @@ from dataclasses import dataclass
 from typing import Iterable
 
 import numpy as np
-from scipy.optimize import linear_sum_assignment
-
 from .errors import InputError
 
 __all__ = [
@@ -319,6 +317,10 @@ def _assign(cost: np.ndarray) -> np.ndarray:
     perm = cost.argmin(axis=2)
     srt = np.sort(perm, axis=1)
     ok = np.all(srt == np.arange(n)[None, :], axis=1)
+    if ok.all():
+        return perm
+    from scipy.optimize import linear_sum_assignment
+
     for b in np.flatnonzero(~ok):
         _, cols = linear_sum_assignment(cost[b])
         perm[b] = cols
@@ -372,10 +374,33 @@ def _check_inputs(N, D, sigma, gains):
     return N, D, float(sigma), g
 
 
-def _open_loop_poles(D: np.ndarray) -> np.ndarray:
-    poles = _roots_eig(D)
+def _open_loop_poles(D: np.ndarray, roots_fn=None) -> np.ndarray:
+    """Roots of D per row in the deterministic branch order (`_sort_key_order`)."""
+    poles = (roots_fn or _roots_eig)(D)
     order = _sort_key_order(poles)
     return np.take_along_axis(poles, order, axis=1)
+
+
+def _roots_fast(P: np.ndarray, nz: np.ndarray | None = None) -> np.ndarray:
+    """As `_roots_eig`, by the compiled QR of `sweep.rootfind` (LAPACK where it fails)."""
+    from .rootfind import poly_roots
+
+    n = P.shape[1] - 1
+    degrees = None if nz is None else n - np.asarray(nz, dtype=np.int64)
+    return poly_roots(P, degrees, max_its=_QR_MAX_ITS)
+
+
+# Newton settings: accept when the estimated error is below _NEWTON_RTOL x the variant's root scale.
+_NEWTON_RTOL = 1e-12
+_NEWTON_MAXIT = 6
+# a Newton correction must stay under this fraction of the distance to the nearest other
+# prediction (1/3 makes each root the nearest to its own prediction by a factor 2)
+_DOMINANCE = 1.0 / 3.0
+# QR iterations per eigenvalue in the compiled fall-back before a variant is redone with LAPACK
+_QR_MAX_ITS = 60
+
+_STAT_KEYS = ("steps", "fallback_variant_steps", "not_converged", "not_separated",
+              "degree_drop", "newton_variant_iterations", "variant_redo")
 
 
 def trace(N, D, *, sigma: int, gains, method: str = "continuation",
@@ -392,13 +417,13 @@ def trace(N, D, *, sigma: int, gains, method: str = "continuation",
     gains
         Strictly increasing positive gains ``(G,)`` (e.g. from `gain_grid`).
     method
-        ``"continuation"`` (default, fast) or ``"eig"`` (companion
+        ``"continuation"`` (default, fast) or ``"eig"`` (LAPACK companion
         eigenvalues at every gain, then optimal matching; the reference).
     stats
-        Optional dict that receives counters of the fall-back paths taken
-        (``"fallback_variant_steps"``, ``"not_converged"``,
-        ``"not_separated"``, ``"degree_drop"``, ``"steps"``,
-        ``"newton_variant_iterations"``).
+        Optional dict that receives counters of the paths taken: ``"steps"``
+        (gain steps), ``"fallback_variant_steps"``, ``"not_converged"``,
+        ``"not_separated"``, ``"degree_drop"``, ``"newton_variant_iterations"``,
+        ``"variant_redo"``.
 
     Returns
     -------
@@ -421,67 +446,117 @@ def trace(N, D, *, sigma: int, gains, method: str = "continuation",
     heading out to infinity); on the next gain the returning root joins that
     branch again.
 
-    Continuation accepts a variant's Newton result at a gain only when every
-    root converged (last step below ``1e-12`` of the root scale, or a
-    contracting step whose geometric tail is, or a residual at the rounding
-    level of the evaluation) and every correction is under a third of the
-    distance from its prediction to the nearest other prediction (so each
-    root is the nearest one to its own prediction by a factor two, and no
-    two predictions converged to one root).  Otherwise - near break-away
-    points, where real roots must leave the real axis, on coarse grids, at
-    degree drops - that variant's step is redone with companion eigenvalues
-    and optimal matching against the prediction (each predicted step capped
-    at half the distance to the nearest other root).  Accuracy is then that
-    of a backward-stable root finder: the deviation from the eigenvalues is
-    at rounding level for well-separated roots and grows with the condition
-    of clustered roots, for both methods.
+    Continuation (compiled, `sweep._locus_kernel`, one variant at a time)
+    corrects the prediction with at least two Newton steps and accepts a
+    variant's step only when every root converged (last step below
+    ``1e-12`` of the root scale, or a contracting step whose geometric tail
+    is, or a residual at the rounding level of the evaluation) and every
+    correction is under a third of the distance from its prediction to the
+    nearest other prediction (so each root is the nearest one to its own
+    prediction by a factor two, and no two predictions converged to one
+    root).  Otherwise - near break-away points, where real roots must leave
+    the real axis, on coarse grids, at degree drops - that step is redone
+    with the companion-matrix roots matched optimally to the prediction
+    (each predicted step capped at half the distance to the nearest other
+    root).  Should the compiled QR iteration itself fail, the whole variant
+    is traced again with ``method="eig"``.  Accuracy is that of a
+    backward-stable root finder: the deviation from the eigenvalues is at
+    rounding level for well-separated roots and grows with the condition of
+    clustered roots, for both methods.  Each variant's result depends on
+    that variant alone, so a batch equals its rows traced one at a time.
     """
     N, D, sg, g = _check_inputs(N, D, sigma, gains)
     if method not in ("continuation", "eig"):
         raise ValueError(f"unknown method {method!r}")
     V, w = D.shape
     n = w - 1
-    G = g.size
-    out = np.empty((V, G, n), dtype=np.complex128)
+    st = dict.fromkeys(_STAT_KEYS, 0)
     if n == 0 or V == 0:
-        return out
-    st = {"steps": 0, "fallback_variant_steps": 0, "not_converged": 0,
-          "not_separated": 0, "degree_drop": 0, "newton_variant_iterations": 0}
-
-    poles = _open_loop_poles(D)
-    # gain 0 -> first grid gain: match the roots to the open-loop poles
-    P0 = _char_poly(N, D, sg, g[0])
-    nz0 = _lead_zeros(P0, N, D, sg, g[0])
-    out[:, 0] = _match(poles, _roots_eig(P0, nz0))
-    st["degree_drop"] += int(np.count_nonzero(nz0))
-
-    Np_ = N  # padded numerator
-    lead_n = np.any(N[:, 0] != 0)  # only then can the degree of P drop
-    nzcol = np.flatnonzero(np.any(N != 0, axis=0))
-    first_nz = int(nzcol[0]) if nzcol.size else N.shape[1] - 1
-    # velocities ds/dk at the previous gain, for the predictor
-    vel = _velocity(Np_, D, sg, g[0], out[:, 0])
-    if method == "continuation":
-        _continue(N, D, sg, g, poles, out, vel, lead_n, first_nz, st)
         if stats is not None:
             stats.update(st)
-        return out
-    prev2, k2 = poles, 0.0
-    prev1, k1 = out[:, 0], g[0]
-    for gi in range(1, G):
-        k = g[gi]
-        st["steps"] += 1
-        pred = _predict(prev2, k2, prev1, k1, vel, k)
-        P = _char_poly(Np_, D, sg, k)
-        nz = _lead_zeros(P, Np_, D, sg, k) if lead_n else np.zeros(V, dtype=np.int64)
-        new = _match(_safe_pred(pred, prev1), _roots_eig(P, nz))
-        st["degree_drop"] += int(np.count_nonzero(nz))
-        vel = _velocity(Np_, D, sg, k, new)
-        out[:, gi] = new
-        prev2, k2, prev1, k1 = prev1, k1, new, k
+        return np.empty((V, g.size, n), dtype=np.complex128)
+    if method == "eig":
+        out = _trace_eig(N, D, sg, g, st)
+    else:
+        res = _trace_compiled(N, D, sg, g, np.arange(V, dtype=np.int64), -1, st)
+        out = res[0]
     if stats is not None:
         stats.update(st)
     return out
+
+
+def _first_step(N, D, sg, g, roots_fn, st):
+    """Sorted poles, the roots at ``g[0]`` matched to them, and ``ds/dk`` there."""
+    poles = _open_loop_poles(D, roots_fn)
+    P0 = _char_poly(N, D, sg, g[0])
+    nz0 = _lead_zeros(P0, N, D, sg, g[0])
+    first = _match(poles, roots_fn(P0, nz0))
+    st["degree_drop"] += int(np.count_nonzero(nz0))
+    return poles, first, _velocity(N, D, sg, g[0], first)
+
+
+def _trace_eig(N, D, sg, g, st) -> np.ndarray:
+    """Reference tracing: LAPACK roots at every gain, optimal matching to the prediction."""
+    V, w = D.shape
+    out = np.empty((V, g.size, w - 1), dtype=np.complex128)
+    poles, out[:, 0], vel = _first_step(N, D, sg, g, _roots_eig, st)
+    prev2, k2 = poles, 0.0
+    prev1, k1 = out[:, 0], g[0]
+    for gi in range(1, g.size):
+        k = g[gi]
+        st["steps"] += 1
+        pred = _predict(prev2, k2, prev1, k1, vel, k)
+        P = _char_poly(N, D, sg, k)
+        nz = _lead_zeros(P, N, D, sg, k)
+        new = _match(_safe_pred(pred, prev1), _roots_eig(P, nz))
+        st["degree_drop"] += int(np.count_nonzero(nz))
+        vel = _velocity(N, D, sg, k, new)
+        out[:, gi] = new
+        prev2, k2, prev1, k1 = prev1, k1, new, k
+    return out
+
+
+def _trace_compiled(N, D, sg, g, keep_row, op_index, st):
+    """Run the compiled continuation; variants whose QR failed are redone with `_trace_eig`.
+
+    Returns ``(kept (Vk, G, n), at_operating (V, n), abscissa (V, G), poles (V, n))``.
+    """
+    from . import _locus_kernel as K
+
+    V, w = D.shape
+    n = w - 1
+    G = g.size
+    keep_row = np.ascontiguousarray(keep_row, dtype=np.int64)
+    n_kept = int(keep_row.max()) + 1 if keep_row.size else 0
+    poles, first, vel0 = _first_step(N, D, sg, g, _roots_fast, st)
+    out_kept = np.empty((n_kept, G, n), dtype=np.complex128)
+    out_op = np.full((V, n), np.nan + 0j) if op_index >= 0 else np.empty((0, n), dtype=np.complex128)
+    abscissa = np.empty((V, G))
+    status = np.zeros(V, dtype=np.int8)
+    counters = np.zeros(K.N_STATS, dtype=np.int64)
+    K.continue_branches(
+        np.ascontiguousarray(N), np.ascontiguousarray(D), float(sg), g,
+        np.ascontiguousarray(poles), np.ascontiguousarray(first), np.ascontiguousarray(vel0),
+        keep_row, int(op_index), out_kept, out_op, abscissa, status, counters,
+        int(_NEWTON_MAXIT), float(_NEWTON_RTOL), float(_DOMINANCE), float(_EPS), int(_QR_MAX_ITS),
+    )
+    st["steps"] += G - 1
+    st["fallback_variant_steps"] += int(counters[K.ST_FALLBACK])
+    st["not_converged"] += int(counters[K.ST_NOT_CONVERGED])
+    st["not_separated"] += int(counters[K.ST_NOT_SEPARATED])
+    st["degree_drop"] += int(counters[K.ST_DEGREE_DROP])
+    st["newton_variant_iterations"] += int(counters[K.ST_NEWTON_ITERATIONS])
+    redo = np.flatnonzero(status == 0)
+    if redo.size:
+        st["variant_redo"] += int(redo.size)
+        roots = _trace_eig(N[redo], D[redo], sg, g, dict.fromkeys(_STAT_KEYS, 0))
+        rows = keep_row[redo]
+        out_kept[rows[rows >= 0]] = roots[rows >= 0]
+        if op_index >= 0:
+            out_op[redo] = roots[:, op_index]
+        abscissa[redo] = spectral_abscissa(roots)
+        poles[redo] = _open_loop_poles(D[redo])
+    return out_kept, out_op, abscissa, poles
 
 
 def _velocity(N: np.ndarray, D: np.ndarray, sg: float, k: float, z: np.ndarray) -> np.ndarray:
@@ -533,167 +608,6 @@ def _safe_pred(pred: np.ndarray, prev: np.ndarray) -> np.ndarray:
     return np.where(np.isfinite(out), out, pred)
 
 
-# Newton settings: accept when the estimated error is below _NEWTON_RTOL x the variant's root scale.
-_NEWTON_RTOL = 1e-12
-_NEWTON_MAXIT = 6
-# a Newton correction must stay under this fraction of the distance to the nearest other
-# prediction (1/3 makes each root the nearest to its own prediction by a factor 2)
-_DOMINANCE = 1.0 / 3.0
-
-
-def _horner_t(c: np.ndarray, z: np.ndarray) -> np.ndarray:
-    """p(z) in the transposed layout: coefficients c (w, B), points z (n, B)."""
-    p = np.empty(z.shape, dtype=np.result_type(c, z))
-    p[...] = c[0]
-    for i in range(1, c.shape[0]):
-        p *= z
-        p += c[i]
-    return p
-
-
-def _newton_t(c: np.ndarray, z: np.ndarray):
-    """One Newton step in place on z (n, B) for coefficients c (w, B).
-
-    Returns ``(|step|, P'(z) before the step)``.
-    """
-    p = np.empty(z.shape, dtype=np.complex128)
-    p[...] = c[0]
-    dp = np.zeros_like(p)
-    for i in range(1, c.shape[0]):
-        dp *= z
-        dp += p
-        p *= z
-        p += c[i]
-    p /= dp
-    z -= p
-    return np.abs(p), dp
-
-
-def _continue(N, D, sg, g, poles, out, vel, lead_n, first_nz, st) -> None:
-    """Predictor-corrector continuation over the grid, filling out[:, 1:].
-
-    Works in the transposed layout (roots ``(n, V)``, coefficients ``(w, V)``)
-    so that every elementwise operation and every reduction over the roots
-    of a variant runs along long contiguous rows.
-    """
-    V, w = D.shape
-    NT = np.ascontiguousarray(N.T)
-    DT = np.ascontiguousarray(D.T)
-    NTz = NT[first_nz:]
-    prev2, k2 = np.ascontiguousarray(poles.T), 0.0
-    prev1, k1 = np.ascontiguousarray(out[:, 0].T), g[0]
-    velT = np.ascontiguousarray(vel.T)
-    no_drop = np.zeros(V, dtype=np.int64)
-    for gi in range(1, g.size):
-        k = g[gi]
-        st["steps"] += 1
-        pred = _predict(prev2, k2, prev1, k1, velT, k)
-        PT = DT + (sg * k) * NT
-        nz = _lead_zeros(PT.T, N, D, sg, k) if lead_n else no_drop
-        new, dp = _continuation_step_t(PT, nz, pred, prev1, st)
-        with np.errstate(all="ignore"):
-            # the last Newton derivative is P' at the root to first order: enough for a predictor
-            velT = _horner_t(NTz, new)
-            velT *= -sg
-            velT /= dp
-        redo = np.flatnonzero(~np.isfinite(velT).all(axis=0))
-        if redo.size:
-            velT[:, redo] = _velocity(N[redo], D[redo], sg, k, new[:, redo].T).T
-        out[:, gi] = new.T
-        prev2, k2, prev1, k1 = prev1, k1, new, k
-
-
-def _continuation_step_t(P, nz, pred, prev, st):
-    """Newton from the prediction for all variants; eigenvalue fall back where in doubt.
-
-    Transposed layout: ``P`` (w, V), ``pred``/``prev`` (n, V).  Returns the
-    roots (n, V) and P' at (nearly) the roots, NaN where unknown.
-    """
-    n, V = pred.shape
-    z = pred.copy()
-    st.setdefault("newton_variant_iterations", 0)
-    with np.errstate(all="ignore"):
-        ok = np.isfinite(pred).all(axis=0)
-        if nz.any():
-            st["degree_drop"] += int(np.count_nonzero(nz))
-            ok &= nz == 0
-        # root scale of each variant (max-norm is enough for a relative tolerance)
-        sc = np.maximum(np.abs(pred.real).max(axis=0), np.abs(pred.imag).max(axis=0))
-        sc = np.where(sc > 0, sc, 1.0) * _NEWTON_RTOL
-        done = np.zeros(V, dtype=bool)
-        dp = np.full((n, V), np.nan + 0j)
-        active = np.flatnonzero(ok)
-        maxit = _NEWTON_MAXIT
-        if maxit >= 2 and active.size == V:
-            # two steps on everything: a good prediction converges in two
-            a1, _ = _newton_t(P, z)
-            a2, dp = _newton_t(P, z)
-            st["newton_variant_iterations"] += 2 * V
-            r = a2 / a1
-            conv = ((a2 <= sc) | ((r < 0.5) & (a2 * r <= sc * (1 - r)))).all(axis=0)
-            conv &= np.isfinite(z).all(axis=0)
-            done = conv
-            active = np.flatnonzero(~conv)
-            last = a2[:, active]
-            it0 = 2
-        else:
-            last = np.full((n, active.size), np.inf)
-            it0 = 0
-        # further steps only on the variants that still need them
-        for _ in range(it0, maxit):
-            if active.size == 0:
-                break
-            st["newton_variant_iterations"] += int(active.size)
-            za = z[:, active]
-            a, dpa = _newton_t(P[:, active], za)
-            z[:, active] = za
-            dp[:, active] = dpa
-            r = a / last
-            s_a = sc[active]
-            conv_root = (a <= s_a) | (np.isfinite(last) & (r < 0.5) & (a * r <= s_a * (1 - r)))
-            fin = np.isfinite(za).all(axis=0)
-            conv = conv_root.all(axis=0) & fin
-            done[active[conv]] = True
-            keep = ~conv & fin
-            active = active[keep]
-            last = a[:, keep]
-        # a residual already at the rounding level of the evaluation cannot improve
-        left = np.flatnonzero(ok & ~done)
-        if left.size:
-            zl = z[:, left]
-            Pl = P[:, left]
-            p = _horner_t(Pl, zl)
-            noise = _horner_t(np.abs(Pl), np.abs(zl)).real
-            at_noise = (np.abs(p) <= 64 * _EPS * noise).all(axis=0) & np.isfinite(zl).all(axis=0)
-            done[left[at_noise]] = True
-    good = ok & done
-    st["not_converged"] += int(np.count_nonzero(ok & ~done))
-    if n > 1:
-        # separation: every correction must stay under _DOMINANCE (1/3) of the distance from
-        # its prediction to the nearest other prediction, so each corrected root is the
-        # nearest to its own prediction by a factor 2 and no two roots coincide
-        dz = z - pred
-        e2 = dz.real * dz.real
-        e2 += dz.imag * dz.imag
-        d = pred[:, None, :] - pred[None, :, :]
-        d2 = d.real * d.real
-        d2 += d.imag * d.imag
-        ar = np.arange(n)
-        d2[ar, ar] = np.inf
-        sep2 = d2.min(axis=1)
-        with np.errstate(invalid="ignore"):
-            sep_ok = (e2 < (_DOMINANCE * _DOMINANCE) * sep2).all(axis=0)
-        st["not_separated"] += int(np.count_nonzero(good & ~sep_ok))
-        good &= sep_ok
-    fb = np.flatnonzero(~good)
-    if fb.size:
-        st["fallback_variant_steps"] += int(fb.size)
-        z[:, fb] = _match(_safe_pred(pred[:, fb].T, prev[:, fb].T),
-                          _roots_eig(np.ascontiguousarray(P[:, fb].T), nz[fb])).T
-        dp[:, fb] = np.nan
-    return z, dp
-
-
 # --------------------------------------------------------------------------- one chunk
 
 @dataclass(frozen=True)
@@ -720,12 +634,17 @@ class ChunkLocus:
     envelope: "Envelope"
 
 
-def trace_chunk(N, D, *, sigma: int, gains, keep, operating_index: int | None = None) -> ChunkLocus:
+def trace_chunk(N, D, *, sigma: int, gains, keep, operating_index: int | None = None,
+                stats: dict | None = None) -> ChunkLocus:
     """Trace a chunk and keep only what a sweep stores.
+
+    The same tracing as `trace`, but the full ``(V, G, n)`` roots are never
+    held: only the kept variants' branches, the roots at the operating
+    gain and the per-gain spectral abscissa (folded into the envelope).
 
     Parameters
     ----------
-    N, D, sigma, gains
+    N, D, sigma, gains, stats
         As in `trace`.
     keep
         Bool ``(V,)``: whose branches to return in full.
@@ -737,14 +656,30 @@ def trace_chunk(N, D, *, sigma: int, gains, keep, operating_index: int | None = 
     -------
     ChunkLocus
     """
+    N, D, sg, g = _check_inputs(N, D, sigma, gains)
     keep = np.asarray(keep, dtype=bool)
-    roots = trace(N, D, sigma=sigma, gains=gains)
-    _, Ds = _stacks(N, D)
+    V, w = D.shape
+    n = w - 1
+    if keep.shape != (V,):
+        raise ValueError(f"keep must be a bool mask of length {V}, got shape {keep.shape}")
+    op = -1 if operating_index is None else int(operating_index)
+    if not -1 <= op < g.size:
+        raise ValueError(f"operating_index {operating_index} outside the grid of {g.size} gains")
+    st = dict.fromkeys(_STAT_KEYS, 0)
+    if n == 0 or V == 0:
+        empty = np.empty((0, n), dtype=np.complex128)
+        return ChunkLocus(np.empty((int(keep.sum()), g.size, n), dtype=np.complex128),
+                          None if op < 0 else np.empty((V, n), dtype=np.complex128),
+                          np.empty((V, n), dtype=np.complex128) if V else empty, Envelope(g.size))
+    keep_row = np.where(keep, np.cumsum(keep) - 1, -1).astype(np.int64)
+    kept, at_op, abscissa, poles = _trace_compiled(N, D, sg, g, keep_row, op, st)
+    if stats is not None:
+        stats.update(st)
     return ChunkLocus(
-        kept_roots=roots[keep],
-        operating_roots=None if operating_index is None else roots[:, int(operating_index)].copy(),
-        open_loop_poles=_open_loop_poles(Ds),
-        envelope=Envelope(roots.shape[1]).update(roots),
+        kept_roots=kept,
+        operating_roots=None if op < 0 else at_op,
+        open_loop_poles=poles,
+        envelope=Envelope(g.size).update(abscissa),
     )
 
 

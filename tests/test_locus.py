@@ -219,6 +219,59 @@ def test_batched_equals_one_by_one():
     assert_continuous(r)
 
 
+def test_batched_equals_one_by_one_exactly_with_fallbacks():
+    # every variant is traced on its own inside the compiled loop: a chunk that holds a
+    # variant needing fall-backs (tangency on the grid, degree drop) changes nothing else
+    N1, D1, _, _ = stack("breakaway_breakin")
+    s1 = -3 + np.sqrt(6)
+    k1 = -np.polyval(D1[0], s1) / np.polyval(N1[0], s1)
+    g = np.unique(np.concatenate([np.geomspace(1e-3, 1e3, 120), [k1, 1.0]]))
+    N = np.array([[0.0, 1.0, 3.0], [0.0, 1.0, 5.0], [-1.0, 0.0, 1.0], [0.0, 2.0, 1.0]])
+    D = np.array([[1.0, 1.0, 0.0], [1.0, 2.0, 0.0], [1.0, 3.0, 2.0], [1.0, 0.5, 4.0]])
+    st = {}
+    r = trace(N, D, sigma=1, gains=g, stats=st)
+    assert st["fallback_variant_steps"] > 0 and st["degree_drop"] > 0
+    for v in range(N.shape[0]):
+        assert np.array_equal(trace(N[v:v + 1], D[v:v + 1], sigma=1, gains=g)[0], r[v], equal_nan=True)
+
+
+def test_trace_chunk_equals_trace():
+    rng = np.random.default_rng(8)
+    V = 12
+    D = np.stack([poly(*[[1, p] for p in rng.uniform(0.2, 5, 3)],
+                       pair(-rng.uniform(0.2, 2), rng.uniform(0.5, 3))) for _ in range(V)])
+    N = np.stack([poly([1, z]) for z in rng.uniform(0.5, 8, V)])
+    g = np.geomspace(1e-3, 1e3, 90)
+    keep = rng.uniform(size=V) < 0.4
+    full = trace(N, D, sigma=1, gains=g)
+    ch = locus.trace_chunk(N, D, sigma=1, gains=g, keep=keep, operating_index=37)
+    assert np.array_equal(ch.kept_roots, full[keep])
+    assert np.array_equal(ch.operating_roots, full[:, 37])
+    ref = Envelope(g.size).update(full)
+    np.testing.assert_array_equal(ch.envelope.min, ref.min)
+    np.testing.assert_array_equal(ch.envelope.max, ref.max)
+    np.testing.assert_allclose(ch.envelope.mean, ref.mean, rtol=1e-14)
+    np.testing.assert_array_equal(ch.envelope.count, ref.count)
+    # the branches start at the poles handed to the analysis
+    assert np.allclose(ch.open_loop_poles, full[:, 0], atol=0.05 * np.abs(full[:, 0]).max())
+    none = locus.trace_chunk(N, D, sigma=1, gains=g, keep=np.zeros(V, bool))
+    assert none.kept_roots.shape == (0, g.size, 5) and none.operating_roots is None
+
+
+def test_variant_redone_when_the_compiled_qr_fails(monkeypatch):
+    # with no QR iterations allowed, every fall-back step fails in the compiled loop and
+    # the variant is traced again by the LAPACK reference: same roots, counted
+    N, D, sigma, _ = stack("positive_feedback")  # degree 4: the QR must iterate
+    g = np.geomspace(1e-3, 1e3, 9)  # coarse: fall-backs are certain
+    monkeypatch.setattr(locus, "_QR_MAX_ITS", 0)
+    st = {}
+    r = trace(N, D, sigma=sigma, gains=g, stats=st)
+    assert st["variant_redo"] == 1
+    assert np.array_equal(r, trace(N, D, sigma=sigma, gains=g, method="eig"), equal_nan=True)
+    ch = locus.trace_chunk(N, D, sigma=sigma, gains=g, keep=[True], operating_index=4)
+    assert np.array_equal(ch.kept_roots, r) and np.array_equal(ch.operating_roots, r[:, 4])
+
+
 def test_eig_method_agrees_with_continuation():
     rng = np.random.default_rng(5)
     V = 30
@@ -321,6 +374,25 @@ def test_assign_is_optimal():
             i, j = linear_sum_assignment(cost[b])
             assert sorted(perm[b]) == list(range(n))
             assert np.isclose(cost[b, np.arange(n), perm[b]].sum(), cost[b, i, j].sum())
+
+
+def test_compiled_assign_is_optimal():
+    # the compiled assignment (row minima, else Hungarian) against scipy's solver
+    from sweep._locus_kernel import assign
+
+    rng = np.random.default_rng(4)
+    for n in (1, 2, 3, 5, 8, 12):
+        scratch = [np.empty(n + 1), np.empty(n + 1), np.empty(n + 1, np.int64),
+                   np.empty(n + 1, np.int64), np.empty(n + 1), np.empty(n + 1, bool)]
+        perm = np.empty(n, np.int64)
+        for b in range(150):
+            cost = rng.uniform(0, 1, (n, n))
+            if b % 3 == 0:
+                cost = np.round(cost, 1)  # ties
+            assign(cost, perm, *scratch)
+            i, j = linear_sum_assignment(cost)
+            assert sorted(perm) == list(range(n))
+            assert np.isclose(cost[np.arange(n), perm].sum(), cost[i, j].sum())
 
 
 def test_match_with_missing_roots():
