@@ -129,7 +129,8 @@ MAX_LOCUS_POINTS = 100_000
 def _suggest(word: str, choices: Any) -> str:
     """' (did you mean 'x'?)' for a close match, else the list of choices."""
     choices = sorted(choices)
-    close = difflib.get_close_matches(word, choices, n=1)
+    close = [c for c in choices if c.lower() == word.lower()]
+    close = close or difflib.get_close_matches(word, choices, n=1, cutoff=0.5)
     if close:
         return f"did you mean '{close[0]}'?"
     return "expected one of " + ", ".join(choices)
@@ -181,8 +182,8 @@ class _Reader:
 
 
 def _show(value: Any, limit: int = 40) -> str:
-    """repr of a value, cut to `limit` characters for a one-line message."""
-    text = repr(value)
+    """repr of a value (dates as written in TOML), cut to `limit` characters for a one-line message."""
+    text = value.isoformat() if hasattr(value, "isoformat") else repr(value)
     return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
@@ -248,6 +249,8 @@ def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
         raise r.fail(where, f"'{name}' is a reserved word of the expression language; rename the parameter")
     if not isinstance(spec, dict):
         # A bare number is a fixed parameter.
+        if isinstance(spec, bool) or not isinstance(spec, (int, float)):
+            raise r.fail(where, f"expected a number or a table such as {{ nominal = 1.0, tol = \"5%\" }}, got {_kind(spec)} {_show(spec)}")
         value = r.number(spec, where)
         return Parameter(name, value, value, value, "fixed", "")
     r.known_keys(spec, _PARAM_KEYS, where)
@@ -381,7 +384,7 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
         if lo < 0:
             raise r.fail("loop.gain_range[0]", "gains must not be negative; for a negative gain use feedback = \"positive\"")
         if not lo < hi:
-            raise r.fail("loop.gain_range", f"low ({lo:g}) must be below high ({hi:g})")
+            raise r.fail("loop.gain_range", f"low ({lo:g}) must be below high ({hi:g}); write [low, high]")
         gain_range = (lo, hi)
     operating_gain = None
     if "operating_gain" in loop:

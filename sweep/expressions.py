@@ -133,6 +133,21 @@ _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
 _OPS = ("**", "+", "-", "*", "/", "^", "(", ")", ",")
 
 
+# characters that word processors and web pages put in place of plain ASCII
+_LOOKALIKES = {
+    "\u2212": "a typographic minus sign; type '-'",
+    "\u2013": "a dash; type '-'",
+    "\u00d7": "a multiplication sign; type '*'",
+    "\u00b7": "a middle dot; type '*'",
+    "\u22c5": "a dot operator; type '*'",
+    "\u00f7": "a division sign; type '/'",
+    "\u00b2": "a superscript; write ^2",
+    "\u00b3": "a superscript; write ^3",
+    "\u00a0": "a non-breaking space; type a plain space",
+    "\u200b": "an invisible zero-width space; delete it",
+}
+
+
 @dataclass(frozen=True)
 class _Tok:
     kind: str  # "num", "name", "op", "end"
@@ -200,6 +215,8 @@ def _tokenize(text: str) -> list[_Tok]:
         else:
             what = {"'": "string quote \"'\"", '"': "string quote '\"'", ".": "attribute access '.'", "[": "indexing '['",
                     "]": "']'", ";": "';'", ":": "':'", "=": "'='"}.get(c, repr(c))
+            if c in _LOOKALIKES:
+                raise _err(f"unexpected {what} at position {i + 1}: {_LOOKALIKES[c]}")
             raise _err(f"unexpected {what} at position {i + 1}; allowed: {_ALLOWED}")
     toks.append(_Tok("end", "", n))
     return toks
@@ -433,13 +450,14 @@ def check(node: Node, known: Any, *, allow_s: bool) -> None:
     known = set(known)
     for nm in sorted(names(node)):
         if nm not in known:
-            close = difflib.get_close_matches(nm, sorted(known), n=1)
+            close = [k for k in sorted(known) if k.lower() == nm.lower()]
+            close = close or difflib.get_close_matches(nm, sorted(known), n=1, cutoff=0.5)  # short names: 'Kn' ~ 'Km'
             if close:
-                hint = f"did you mean '{close[0]}'?"
+                hint = f"did you mean '{close[0]}'? (or define '{_short(nm)}' as a parameter)"
             elif known:
-                hint = "known names: " + ", ".join(sorted(known))
+                hint = f"define it as a parameter or correct the spelling (known names: {', '.join(sorted(known))})"
             else:
-                hint = "no parameters are defined"
+                hint = "no parameters are defined; define it as a parameter"
             raise _err(f"unknown name '{_short(nm)}'; {hint}")
     if not has_s(node):
         return
