@@ -232,6 +232,8 @@ def _one_tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> f
             raise r.fail(field_name, "tolerance must not be negative")
         if pct >= 100:
             raise r.fail(field_name, f"a tolerance of {pct:g}% lets the value reach or cross zero; give explicit low/high bounds if that is intended")
+        if nominal == 0 and pct > 0:
+            raise r.fail(field_name, "a percentage of a zero nominal is zero; give an absolute tolerance (tol = 0.1) or low/high bounds")
         return abs(nominal) * (pct / 100.0)
     t = r.number(value, field_name)
     if t < 0:

@@ -157,6 +157,7 @@ BAD = [
     ("date_value", GOOD.replace("nominal = 2.0", "nominal = 2024-01-01"), "got a date"),
     ("empty_file", "", "missing [plant]"),
     ("sensor_s_in_function", GOOD + '[loop]\nsensor = "1/exp(0.01*s)"\n', "loop.sensor"),
+    ("percent_of_zero", GOOD.replace('nominal = 2.0, tol = "10%"', 'nominal = 0, tol = "10%"'), "parameters.a.tol: a percentage of a zero nominal"),
     ("long_string_value", GOOD.replace("nominal = 2.0", 'nominal = "' + "9" * 5000 + '"'), "..."),
 ]
 
