@@ -372,6 +372,9 @@ def _check_guard(config: Config, field_name: str, kind: str, guard: Any, role: s
         return np.isfinite(v) & np.isfinite(np.tan(v))
 
     needs = _GUARD_NEEDS[kind]
+    if not np.isfinite(v0):
+        raise InputError(f"'{text}' ({role}) is {v0} at the nominal values (too large for floating point); check the expression and the nominal values",
+                         file=config.source, field=field_name)
     if not value_ok(np.array([v0]))[0]:
         raise InputError(f"'{text}' ({role}) must {needs}, but it is {v0:.6g} at the nominal values; check the expression and the nominal values",
                          file=config.source, field=field_name)

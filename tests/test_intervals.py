@@ -150,3 +150,22 @@ def test_shape_getitem_mid_width_stack_hull():
     f = Interval.from_bounds([0.0, 1.0], [2.0, 3.0])
     assert f.contains([1.0, 2.5]).all()
     assert f.contains([-1.0, 3.5]).tolist() == [False, False]
+
+
+@pytest.mark.parametrize("magnitude", [1.0, 1e3, 1e6, 9e7, 1e12])
+def test_trig_against_mpmath_at_large_arguments(magnitude):
+    # reference: mpmath at 40 digits (the float reduction by 2*pi loses digits as |x| grows;
+    # the enclosure must still hold the true values of the points it encloses)
+    import mpmath
+
+    mpmath.mp.dps = 40
+    rng = np.random.default_rng(int(magnitude) % 1000)
+    c = (rng.random(300) - 0.5) * 2 * magnitude
+    w = 10 ** rng.uniform(-15, 0.5, 300) * max(1.0, magnitude) * 1e-3
+    iv = Interval(c, c + w)
+    for fn, ref in ((isin, mpmath.sin), (icos, mpmath.cos), (itan, mpmath.tan)):
+        r = fn(iv)
+        for j in range(c.size):
+            for x in (iv.lo[j], 0.5 * (iv.lo[j] + iv.hi[j]), iv.hi[j]):
+                v = ref(mpmath.mpf(float(x)))
+                assert mpmath.mpf(float(r.lo[j])) <= v <= mpmath.mpf(float(r.hi[j])), (fn.__name__, x)
