@@ -49,7 +49,7 @@ import numpy as np
 from .config import DESIGNS, Config, Parameter
 from .errors import InputError
 
-__all__ = ["Variants", "generate", "design_count"]
+__all__ = ["Variants", "generate", "design_count", "total_count"]
 
 
 @dataclass(frozen=True)
@@ -149,7 +149,18 @@ def design_count(config: Config, name: str) -> int:
     )
 
 
-def _check_sizes(config: Config) -> None:
+def total_count(config: Config) -> int:
+    """Number of variants of the whole sweep, checked against the limits, without generating them.
+
+    Raises
+    ------
+    InputError
+        Unknown design, or a design / total above ``sweep.max_variants``.
+    """
+    return _check_sizes(config)
+
+
+def _check_sizes(config: Config) -> int:
     limit = int(config.sweep.max_variants)
     total = 0
     for name in config.sweep.designs:
@@ -171,6 +182,7 @@ def _check_sizes(config: Config) -> None:
             file=config.source,
             field="sweep.max_variants",
         )
+    return total
 
 
 # ---------------------------------------------------------------- designs

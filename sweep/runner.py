@@ -3,10 +3,18 @@
 `run` turns a `Config` into a result file. The variants (`sweep.designs`)
 are cut into fixed chunks of ``config.sweep.chunk_size``; chunk ``i`` always
 holds variants ``i*chunk_size ... (i+1)*chunk_size - 1``. Each chunk is
-computed by ONE pure function, `compute_chunk`, and written by the parent
-process as its own part file ``OUT.parts/chunk-00000.nc ...``; when all parts
-exist they are merged into ``OUT`` (`sweep.store.merge_parts`) and, only
-after the merge has succeeded, the parts folder is deleted.
+computed by ONE pure function, `compute_chunk`, and written as its own part
+file ``OUT.parts/chunk-00000.nc ...``; when all parts exist they are merged
+into ``OUT`` (`sweep.store.merge_parts`) and, only after the merge has
+succeeded, the parts folder is deleted.
+
+Who computes and who writes (``-j N``): this process and ``N - 1`` local
+workers (joblib's loky processes) take chunks from one queue, and each of
+them writes the parts it computed, so neither the writing nor the transfer
+of results goes through one process. The workers are started first thing,
+so their start-up overlaps the variant generation and the gain grid. With
+a Dask scheduler the cluster's workers compute and this process writes
+every part (the workers may not see this file system).
 
 Files next to ``OUT``:
 
@@ -34,7 +42,9 @@ Test hook (for the kill-and-resume tests only, never needed in use): the
 environment variable ``SWEEP_TEST_PAUSE`` = ``chunks:N`` makes the run write
 ``test pause`` to the log and sleep after it has written N parts in this
 process (``chunks:0``: right after start), ``merge:K`` after K parts have
-been appended to the merged file, so a test can kill it at that moment.
+been appended to the merged file, ``cleanup:0`` once the merged file is in
+place but before the parts folder is removed, so a test can kill it at that
+moment.
 """
 from __future__ import annotations
 
@@ -44,13 +54,12 @@ import os
 import shutil
 import sys
 import time
+from collections import deque
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Callable, Iterator
+from typing import Callable
 
 import numpy as np
-import xarray as xr
-
 from . import __version__, designs, store
 from .config import Config
 from .designs import Variants
@@ -261,28 +270,30 @@ def kept_mask(config: Config, variants: Variants) -> np.ndarray:
     return mask
 
 
-def _coords(config: Config, variants: Variants, gains: np.ndarray, kept: np.ndarray) -> dict[str, Any]:
+def _coords(config: Config, variants: Variants, gains: np.ndarray, kept: np.ndarray) -> dict[str, store.Var]:
     units = {p.name: p.units for p in config.parameters}
-    coords: dict[str, Any] = {
-        "variant": ("variant", variants.index, {"long_name": "variant index", "units": "1"}),
+    V = store.Var
+    coords: dict[str, store.Var] = {
+        "variant": V(("variant",), variants.index, {"long_name": "variant index", "units": "1"}),
     }
     for name, vals in variants.values.items():
-        coords[name] = ("variant", vals, {"long_name": f"parameter {name}", "units": units.get(name, "") or "1"})
-    coords["design"] = ("variant", variants.design.astype(str), {"long_name": "design that produced the variant", "units": ""})
-    coords["gain"] = ("gain", gains, {"long_name": "loop gain k on the common locus grid", "units": "1"})
-    coords["locus_variant"] = (
-        "locus_variant", variants.index[kept], {"long_name": "variant whose locus is kept", "units": "1"},
+        coords[name] = V(("variant",), vals, {"long_name": f"parameter {name}", "units": units.get(name, "") or "1"})
+    coords["design"] = V(("variant",), variants.design.astype(str),
+                         {"long_name": "design that produced the variant", "units": ""})
+    coords["gain"] = V(("gain",), gains, {"long_name": "loop gain k on the common locus grid", "units": "1"})
+    coords["locus_variant"] = V(
+        ("locus_variant",), variants.index[kept], {"long_name": "variant whose locus is kept", "units": "1"},
     )
     return coords
 
 
-def compute_chunk(config: Config, variants: Variants, gains: np.ndarray, kept: np.ndarray) -> xr.Dataset:
-    """Everything computed for one chunk of variants, as a part dataset.
+def compute_chunk(config: Config, variants: Variants, gains: np.ndarray, kept: np.ndarray) -> store.Part:
+    """Everything computed for one chunk of variants, as a part.
 
-    Pure: no files. Assembles the stacks (`sweep.loop.assemble`), analyses
-    them (`sweep.analysis.analyze_stack`), traces the loci on the common
-    grid (`sweep.locus.trace`), keeps the loci of the kept variants and the
-    chunk's spectral-abscissa envelope.
+    Pure: no files. Assembles the stacks (`sweep.loop.assemble`), traces the
+    loci on the common grid (`sweep.locus.trace_chunk`: kept branches, roots
+    at the operating gain, open-loop poles, the chunk's spectral-abscissa
+    envelope) and analyses the stacks (`sweep.analysis.analyze_stack`).
 
     Parameters
     ----------
@@ -297,8 +308,9 @@ def compute_chunk(config: Config, variants: Variants, gains: np.ndarray, kept: n
 
     Returns
     -------
-    xarray.Dataset
-        The part layout described in `sweep.store`.
+    sweep.store.Part
+        The part layout described in `sweep.store` (global attributes are
+        added by the caller).
     """
     from . import analysis, locus, loop
 
@@ -318,32 +330,99 @@ def compute_chunk(config: Config, variants: Variants, gains: np.ndarray, kept: n
         N, D, sigma=config.sigma, gain_range=config.gain_range, operating_gain=config.operating_gain,
         open_loop_poles=traced.open_loop_poles, closed_loop_poles=closed,
     )
-    data: dict[str, Any] = {}
+    coords = _coords(config, variants, gains, kept)
+    variables: dict[str, store.Var] = dict(coords)
     for name, dims in analysis.VARIABLE_DIMS.items():
         if name in res:
-            data[name] = (tuple(dims), np.asarray(res[name]), dict(analysis.VARIABLE_ATTRS[name]))
-    data.update(_locus_vars(traced))
-    return xr.Dataset(data, coords=_coords(config, variants, gains, kept))
+            variables[name] = store.Var(tuple(dims), np.asarray(res[name]), dict(analysis.VARIABLE_ATTRS[name]))
+    variables.update(_locus_vars(traced))
+    return store.Part(variables, tuple(coords), {})
 
 
-def _locus_vars(traced) -> dict[str, Any]:
+def _locus_vars(traced) -> dict[str, store.Var]:
     """Kept loci (float32) and the chunk's envelope arrays, from a `sweep.locus.ChunkLocus`."""
     dims = ("locus_variant", "gain", "branch")
     k = traced.kept_roots
-    out: dict[str, Any] = {
-        "locus_real": (dims, k.real.astype(np.float32), {"long_name": "real part of closed-loop root", "units": "1/s"}),
-        "locus_imag": (dims, k.imag.astype(np.float32), {"long_name": "imaginary part of closed-loop root", "units": "rad/s"}),
+    out: dict[str, store.Var] = {
+        "locus_real": store.Var(dims, k.real.astype(np.float32),
+                                {"long_name": "real part of closed-loop root", "units": "1/s"}),
+        "locus_imag": store.Var(dims, k.imag.astype(np.float32),
+                                {"long_name": "imaginary part of closed-loop root", "units": "rad/s"}),
     }
     for name, arr in traced.envelope.to_arrays().items():
-        out[name] = ("gain", arr, {"long_name": f"chunk {name.split('_')[1]} of spectral abscissa", "units": "1/s"})
+        out[name] = store.Var(("gain",), arr,
+                              {"long_name": f"chunk {name.split('_')[1]} of spectral abscissa", "units": "1/s"})
     return out
 
 
-def _chunk_task(fn: Callable, config: Config, i: int, variants: Variants, gains: np.ndarray,
-                kept: np.ndarray) -> tuple[int, xr.Dataset, float]:
+# ---------------------------------------------------------------- chunk tasks
+
+
+def _compute_and_write(fn: Callable, config: Config, i: int, variants: Variants, gains: np.ndarray,
+                       kept: np.ndarray, path: Path, attrs: dict, owner: int | None = None
+                       ) -> tuple[int, store.Part, float, float]:
+    """Compute chunk ``i`` and write its part; returns ``(i, part, compute s, write s)``.
+
+    Runs in this process or in a local worker. ``owner`` is the pid of the
+    run that sent the task to a worker: a worker whose run has died (SIGKILL)
+    does not start the chunks still queued for it.
+    """
+    if owner is not None and os.getppid() != owner:
+        raise SweepError("the run that asked for this chunk has stopped")
     t0 = time.perf_counter()
-    ds = fn(config, variants, gains, kept)
-    return i, ds, time.perf_counter() - t0
+    part = fn(config, variants, gains, kept)
+    t1 = time.perf_counter()
+    part.attrs.update(attrs)
+    store.write_part(part, path)
+    return i, part, t1 - t0, time.perf_counter() - t1
+
+
+def _compute(fn: Callable, config: Config, i: int, variants: Variants, gains: np.ndarray,
+             kept: np.ndarray) -> tuple[int, store.Part, float]:
+    """Compute chunk ``i`` on a Dask worker; the run's own process writes the part."""
+    t0 = time.perf_counter()
+    part = fn(config, variants, gains, kept)
+    return i, part, time.perf_counter() - t0
+
+
+def _warm_up(config: Config) -> None:
+    """A worker's first task: the nominal through the whole chunk computation.
+
+    It loads the compiled kernels (and anything else a chunk needs the first
+    time) while the run is still setting up, so the worker's first real chunk
+    runs at full speed. Any failure is left for the real chunks to report.
+    """
+    try:
+        nominal = Variants(values=config.nominal_values(), design=np.array(["nominal"]))
+        compute_chunk(config, nominal, nominal_gains(config), np.ones(1, dtype=bool))
+    except Exception:
+        pass
+
+
+def _worker_init() -> None:
+    """Start-up of a local worker.
+
+    Leaves Ctrl-C to the run (which stops the workers itself), follows the
+    run if it dies (a SIGKILL of the run must not leave workers computing
+    for nobody) and imports what chunks need while the run sets up.
+    """
+    import signal
+    import threading
+
+    parent = os.getppid()
+
+    def follow_parent() -> None:
+        while True:
+            time.sleep(0.5)
+            if os.getppid() != parent:
+                os._exit(1)  # a part being written is left as a temporary file, removed by the next run
+
+    try:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        threading.Thread(target=follow_parent, name="sweep-follow-run", daemon=True).start()
+        from . import analysis, locus, loop  # noqa: F401  (import now, while the run sets up)
+    except BaseException:  # never break the pool here: a real failure shows in the first chunk
+        pass
 
 
 # ---------------------------------------------------------------- manifest
@@ -425,33 +504,116 @@ def _resume_command(config: Config, out: Path) -> str:
 # ---------------------------------------------------------------- execution
 
 
-def _iter_local(fn, config, tasks, n_tasks, jobs) -> Iterator[tuple[int, xr.Dataset, float]]:
-    if jobs == 1 or n_tasks <= 1:
-        for i, vs, g, k in tasks:
-            yield _chunk_task(fn, config, i, vs, g, k)
+def _cpu_count() -> int:
+    try:
+        return len(os.sched_getaffinity(0))  # the cores this process may use
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
+
+
+class _Pool:
+    """Local worker processes (joblib's loky executor), started before the run's set-up.
+
+    The workers import the numerical modules while this process generates
+    the variants and the gain grid, so no core waits for a start-up. The
+    executor is joblib's reusable one: a later run in the same process (the
+    tests, a notebook) finds the workers ready.
+    """
+
+    def __init__(self, workers: int, jobs: int, config: Config):
+        from joblib.externals.loky import get_reusable_executor
+
+        self.workers = workers
+        threads = str(max(1, _cpu_count() // jobs))  # no oversubscription by BLAS threads
+        env = {k: threads for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
+        self.executor = get_reusable_executor(max_workers=workers, env=env, initializer=_worker_init)
+        for _ in range(workers):
+            self.executor.submit(_warm_up, config)
+
+    def submit(self, *args):
+        return self.executor.submit(_compute_and_write, *args)
+
+    def kill(self) -> None:
+        self.executor.shutdown(wait=False, kill_workers=True)
+
+
+def _run_local(tasks: deque, make: Callable, pool: _Pool | None, done: Callable) -> None:
+    """Compute the chunks in ``tasks``; ``done(i, part, compute_s, write_s)`` after each one.
+
+    This process computes chunks too: with a pool, up to two chunks per
+    worker are queued ahead (so a worker never waits for this process to
+    finish its own chunk), and this process takes the next chunk from the
+    same queue. Both write their own parts.
+    """
+    if pool is None:
+        while tasks:
+            done(*_compute_and_write(*make(tasks.popleft())))
         return
-    import joblib
+    from concurrent.futures import FIRST_COMPLETED, wait
 
-    par = joblib.Parallel(n_jobs=jobs, return_as="generator_unordered")
-    yield from par(joblib.delayed(_chunk_task)(fn, config, i, vs, g, k) for i, vs, g, k in tasks)
+    owner = os.getpid()
+    pending: set = set()
+    try:
+        while tasks or pending:
+            while tasks and len(pending) < 2 * pool.workers:
+                pending.add(pool.submit(*make(tasks.popleft()), owner))
+            for fut in [f for f in pending if f.done()]:
+                pending.discard(fut)
+                done(*fut.result())  # a worker's failure is re-raised here, with its own type
+            if tasks:
+                done(*_compute_and_write(*make(tasks.popleft())))
+            elif pending:
+                wait(pending, return_when=FIRST_COMPLETED)
+    except KeyboardInterrupt:
+        pool.kill()  # stop at once; a part cut short is only a temporary file, removed next time
+        raise
+    except BaseException:
+        # keep what is already being computed: let it finish (its part is written), then re-raise
+        for fut in pending:
+            fut.cancel()
+        wait(pending)
+        for fut in pending:
+            if not fut.cancelled() and fut.exception() is None:
+                i, _, c, w = fut.result()
+                done(i, None, c, w)  # written and logged; the merge is abandoned anyway
+        raise
 
 
-def _iter_dask(fn, config, tasks, scheduler) -> Iterator[tuple[int, xr.Dataset, float]]:
+def _run_dask(tasks: deque, make: Callable, scheduler: str, write: Callable, done: Callable) -> None:
+    """Compute the chunks on a Dask cluster; this process writes each part as it arrives."""
     from distributed import Client, as_completed
 
     client = Client(scheduler)  # as_completed finds its client as the default one
     futures = []
     try:
-        futures = [client.submit(_chunk_task, fn, config, i, vs, g, k, pure=False) for i, vs, g, k in tasks]
+        futures = [client.submit(_compute, *make(i)[:6], pure=False) for i in tasks]
+        tasks.clear()
         for fut in as_completed(futures):
             if fut.status == "error":
                 fut.result()  # re-raises the worker's own exception
-            yield fut.result()
+            i, part, seconds = fut.result()
             fut.release()
+            t0 = time.perf_counter()
+            write(i, part)
+            done(i, part, seconds, time.perf_counter() - t0)
     finally:
         for f in futures:
             f.cancel()
         client.close()
+
+
+def _remove_tree(folder: Path, log: _Log) -> None:
+    """Remove the parts folder; a file appearing meanwhile (a worker of a killed run) is retried."""
+    for _ in range(5):
+        try:
+            shutil.rmtree(folder)
+            return
+        except FileNotFoundError:
+            return
+        except OSError as err:
+            last = err
+            time.sleep(0.2)
+    log(f"could not remove {folder.name} ({last}); it is not needed any more")
 
 
 def run(
@@ -472,7 +634,8 @@ def run(
     out
         Result file; default ``results/<config stem>.nc``.
     jobs
-        Local processes (joblib); ``None``: all cores, ``1``: in this process.
+        Processes computing chunks: this one plus ``jobs - 1`` local workers
+        (joblib); ``None``: all cores, ``1``: in this process only.
         Ignored when ``scheduler`` is given.
     resume
         Continue an earlier run. A plain rerun does the same (finished, valid
@@ -497,100 +660,145 @@ def run(
     Interrupted
         Ctrl-C; finished parts are kept and the message holds the resume command.
     """
-    from tqdm import tqdm
-
+    t_start = time.perf_counter()
     out = Path(out) if out is not None else Path("results") / f"{config.stem}.nc"
+    _check_names(config)
+    count = designs.total_count(config)  # refuses oversized designs before anything is written
+    size = int(config.sweep.chunk_size)
+    jobs = _cpu_count() if jobs is None else max(1, int(jobs))
     out.parent.mkdir(parents=True, exist_ok=True)
     parts = out.with_name(out.name + ".parts")
     log = _Log(out.with_name(out.name + ".log"))
-    _check_names(config)
-    variants = designs.generate(config)
-    jobs = (os.cpu_count() or 1) if jobs is None else max(1, int(jobs))
 
     with _Lock(out.with_name(out.name + ".lock"), log):
-        t_start = time.perf_counter()
-        log(f"start {config.source} sha256={config.sha256} variants={variants.count} "
-            f"chunk_size={config.sweep.chunk_size} jobs={jobs if scheduler is None else 'dask'} "
+        log(f"start {config.source} sha256={config.sha256} variants={count} "
+            f"chunk_size={size} jobs={jobs if scheduler is None else 'dask'} "
             f"resume={bool(resume)} sweep={__version__}")
-        if not parts.exists() and out.exists() and _complete(out, config):
+        if out.exists() and store.result_is_complete(out, config_sha256=config.sha256, sweep_version=__version__):
+            if parts.exists():  # a run stopped after its merge, before removing its parts
+                _remove_tree(parts, log)
             log("output already complete for this config; nothing to do")
             return out
-        _remove_leftovers(out, parts, log)
-        man = _manifest(config, out, parts, variants, log)
-        gains = np.asarray(man["gains"], dtype=float)
-        mask = np.zeros(variants.count, dtype=bool)
-        mask[np.asarray(man["kept"], dtype=np.int64)] = True
-        size = int(man["chunk_size"])
-        n_chunks = int(man["chunks"])
-        ranges = [(i * size, min((i + 1) * size, variants.count)) for i in range(n_chunks)]
+        try:
+            return _run_locked(config, out, parts, log, count, size, jobs, scheduler, quiet, t_start)
+        except KeyboardInterrupt:
+            kept = len(list(parts.glob("chunk-*.nc"))) if parts.exists() else 0
+            log(f"interrupted; {kept} chunks kept")
+            raise Interrupted(f"interrupted; {kept} chunks kept", _resume_command(config, out)) from None
 
-        todo, done_variants = [], 0
+
+def _run_locked(config: Config, out: Path, parts: Path, log: _Log, count: int, size: int, jobs: int,
+                scheduler: str | None, quiet: bool, t_start: float) -> Path:
+    """The body of `run`, once the lock is held and the output is known to be incomplete."""
+    n_chunks = math.ceil(count / size) if count else 0
+    workers = 0 if scheduler else min(jobs, n_chunks) - 1
+    pool = _Pool(workers, jobs, config) if workers > 0 else None  # starts now, while we set up
+
+    _remove_leftovers(out, parts, log)
+    variants = designs.generate(config)
+    man = _manifest(config, out, parts, variants, log)
+    gains = np.asarray(man["gains"], dtype=float)
+    kept = np.asarray(man["kept"], dtype=np.int64)
+    mask = np.zeros(variants.count, dtype=bool)
+    mask[kept] = True
+    size = int(man["chunk_size"])
+    n_chunks = int(man["chunks"])
+    ranges = [(i * size, min((i + 1) * size, variants.count)) for i in range(n_chunks)]
+    # the result is built while the chunks are computed; only its last step waits for the end
+    writer = store.ResultWriter(out, total=variants.count, kept=np.sort(kept))
+    merge_pause = _pause_hook("merge", log) if os.environ.get("SWEEP_TEST_PAUSE", "").startswith("merge:") else None
+
+    def merge(part: store.Part, name: str) -> None:
+        writer.add(part, name)
+        if merge_pause is not None:
+            writer.sync()
+            merge_pause(writer.added)
+
+    try:
+        todo, done_variants = deque(), 0
         for i, (a, b) in enumerate(ranges):
             p = _part_path(parts, i)
             if p.exists():
                 try:
-                    store.read_part(p, config_sha256=config.sha256, start=a, stop=b).close()
-                    done_variants += b - a
-                    continue
+                    part = store.read_part(p, config_sha256=config.sha256, start=a, stop=b)
                 except store.PartError as err:
                     log(f"chunk {i}: {err}; computing it again")
                     p.unlink()
+                else:
+                    merge(part, p.name)
+                    done_variants += b - a
+                    continue
             todo.append(i)
         log(f"chunks: {n_chunks} total, {n_chunks - len(todo)} valid on disk, {len(todo)} to compute")
-
-        pause = _pause_hook("chunks", log)
-        pause(0)
-        fn = compute_chunk  # looked up now, so a replaced module attribute is used
-        bar = tqdm(total=variants.count, initial=done_variants, unit="variant",
-                   disable=quiet, file=sys.stderr, desc="sweep", dynamic_ncols=True)
-        written = 0
-        try:
-            # chunk arguments are cut lazily, so only the chunks in flight are copied
-            tasks = ((i, variants.slice(*ranges[i]), gains, mask[slice(*ranges[i])]) for i in todo)
-            it = _iter_dask(fn, config, tasks, scheduler) if scheduler else _iter_local(fn, config, tasks, len(todo), jobs)
-            for i, ds, seconds in it:
-                a, b = ranges[i]
-                ds.attrs.update({"config_sha256": config.sha256, "variant_start": a, "variant_stop": b, "chunk": i})
-                store.write_part(ds, _part_path(parts, i))
-                written += 1
-                log(f"chunk {i} variants {a}..{b - 1} computed in {seconds:.3f} s")
-                bar.update(b - a)
-                bar.set_postfix_str(f"chunk {n_chunks - len(todo) + written}/{n_chunks}")
-                pause(written)
-        except KeyboardInterrupt:
-            bar.close()
-            kept_parts = sum(_part_path(parts, i).exists() for i in range(n_chunks))
-            log(f"interrupted; {kept_parts}/{n_chunks} chunks kept")
-            raise Interrupted(f"interrupted; {kept_parts}/{n_chunks} chunks kept",
-                              _resume_command(config, out)) from None
-        except BaseException as err:
-            bar.close()
-            log(f"failed: {type(err).__name__}: {err}; finished parts kept")
-            raise
-        bar.close()
-
-        log("merge start")
+        if pool is not None and len(todo) <= 1:
+            pool = None  # nothing to share; idle workers leave by themselves
+        _compute_all(config, parts, log, variants, gains, mask, ranges, todo, pool, scheduler, quiet,
+                     done_variants, merge, t_start)
         t_merge = time.perf_counter()
-        merge_pause = _pause_hook("merge", log)
-        try:
-            store.merge_parts(
-                [_part_path(parts, i) for i in range(n_chunks)], out,
-                store.result_attrs(config, created=_now(), sweep_version=__version__),
-                _after_part=lambda k: merge_pause(k),
-            )
-        except KeyboardInterrupt:
-            log("interrupted during merge; parts kept")
-            raise Interrupted("interrupted during the merge; all parts kept", _resume_command(config, out)) from None
-        shutil.rmtree(parts)  # only after the merged file is in place
-        total = time.perf_counter() - t_start
-        log(f"end {out.name}: {variants.count} variants in {n_chunks} chunks, computed {written} now, "
-            f"merge {time.perf_counter() - t_merge:.3f} s, total {total:.3f} s")
+        writer.finish(store.result_attrs(config, created=_now(), sweep_version=__version__))
+        t_merge = time.perf_counter() - t_merge
+    finally:
+        writer.abort()  # no-op once the result is published
+    _pause_hook("cleanup", log)(0)
+    _remove_tree(parts, log)  # only after the merged file is in place
+    log(f"end {out.name}: {variants.count} variants in {n_chunks} chunks; "
+        f"final merge step {t_merge:.3f} s, total {time.perf_counter() - t_start:.3f} s")
     return out
 
 
-def _complete(out: Path, config: Config) -> bool:
+def _compute_all(config: Config, parts: Path, log: _Log, variants: Variants, gains: np.ndarray,
+                 mask: np.ndarray, ranges: list[tuple[int, int]], todo: deque, pool: _Pool | None,
+                 scheduler: str | None, quiet: bool, done_variants: int, merge: Callable,
+                 t_start: float) -> None:
+    """Compute, write and merge the chunks in ``todo``, with progress bar and log."""
+    from tqdm import tqdm
+
+    n_chunks = len(ranges)
+    fn = compute_chunk  # looked up now, so a replaced module attribute is used
+
+    def attrs(i: int) -> dict:
+        a, b = ranges[i]
+        return {"config_sha256": config.sha256, "variant_start": a, "variant_stop": b, "chunk": i}
+
+    def make(i: int) -> tuple:
+        a, b = ranges[i]  # chunk arguments are cut when sent, so only the chunks in flight are copied
+        return (fn, config, i, variants.slice(a, b), gains, mask[a:b], _part_path(parts, i), attrs(i))
+
+    pause = _pause_hook("chunks", log)
+    pause(0)
+    log(f"set-up {time.perf_counter() - t_start:.3f} s")
+    bar = tqdm(total=variants.count, initial=done_variants, unit="variant",
+               disable=quiet, file=sys.stderr, desc="sweep", dynamic_ncols=True)
+    n_todo, written = len(todo), 0
+
+    def done(i: int, part: store.Part | None, compute_s: float, write_s: float) -> None:
+        nonlocal written
+        a, b = ranges[i]
+        written += 1
+        t0 = time.perf_counter()
+        if part is not None:
+            merge(part, _part_path(parts, i).name)
+        log(f"chunk {i} variants {a}..{b - 1} computed in {compute_s:.3f} s, written in {write_s:.3f} s, "
+            f"merged in {time.perf_counter() - t0:.3f} s")
+        bar.update(b - a)
+        bar.set_postfix_str(f"chunk {n_chunks - n_todo + written}/{n_chunks}", refresh=False)
+        pause(written)
+
+    def write(i: int, part: store.Part) -> None:
+        part.attrs.update(attrs(i))
+        store.write_part(part, _part_path(parts, i))
+
+    t0 = time.perf_counter()
     try:
-        with xr.open_dataset(out, engine="netcdf4") as ds:
-            return ds.attrs.get("config_sha256") == config.sha256 and ds.attrs.get("sweep_version") == __version__
-    except Exception:
-        return False
+        if scheduler:
+            _run_dask(todo, make, scheduler, write, done)
+        else:
+            _run_local(todo, make, pool, done)
+    except KeyboardInterrupt:
+        raise
+    except BaseException as err:
+        log(f"failed: {type(err).__name__}: {err}; finished parts kept")
+        raise
+    finally:
+        bar.close()
+    log(f"chunks done: {n_todo} computed in {time.perf_counter() - t0:.3f} s")

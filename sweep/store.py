@@ -8,13 +8,20 @@ over the final name, and the folder is flushed too, so a crash leaves either
 the old state or the complete new file, never half a file under the final
 name.
 
+Everything here talks to netCDF4 directly: a chunk's results travel as a
+`Part` (plain numpy arrays with their dimension names and attributes), so
+neither the chunk workers nor the run itself need to import xarray. Only
+`open_result` and `Part.to_dataset` use xarray.
+
 Part layout (one chunk, made by `sweep.runner.compute_chunk`): the result's
 variables restricted to the chunk's variants (dimension ``variant``), the
 kept loci of those variants (dimension ``locus_variant``, possibly empty),
 the ``gain`` grid, and the chunk's spectral-abscissa envelope as
 ``envelope_min``, ``envelope_max``, ``envelope_sum``, ``envelope_count``
 (along ``gain``). Global attributes ``config_sha256``, ``variant_start``,
-``variant_stop`` tie it to one config and one variant range.
+``variant_stop`` tie it to one config and one variant range. Parts are
+uncompressed except the kept loci (zlib level 1): they live only until the
+merge, and writing them must cost little next to computing them.
 
 The merge streams: it reads one part at a time and appends its slices to the
 output written directly with netCDF4, so its memory does not grow with the
@@ -23,24 +30,27 @@ number of variants.
 from __future__ import annotations
 
 import os
+from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Iterable, Mapping
+from typing import Any, Callable, Iterable, Mapping, NamedTuple
 
 import netCDF4
 import numpy as np
-import xarray as xr
 
 from .errors import SweepError
-from .locus import Envelope
 
 __all__ = [
     "PartError",
     "ENVELOPE_VARS",
+    "Var",
+    "Part",
     "write_part",
     "read_part",
     "merge_parts",
+    "ResultWriter",
     "open_result",
     "result_attrs",
+    "result_is_complete",
 ]
 
 # part-only variables: the envelope's streaming sums, folded into abscissa_* by the merge
@@ -48,6 +58,9 @@ ENVELOPE_VARS = ("envelope_min", "envelope_max", "envelope_sum", "envelope_count
 
 # variables stored as float32 and compressed (DESIGN section 4)
 _COMPRESSED = ("locus_real", "locus_imag")
+_PART_COMPLEVEL = 1  # parts are temporary: cheap compression, only for the (possibly large) kept loci
+_RESULT_COMPLEVEL = 4
+_RESULT_CHUNK_VALUES = 65536  # about 256 KiB of float32 per compressed chunk of the result
 
 _ABSCISSA_ATTRS = {
     "abscissa_min": {"long_name": "smallest spectral abscissa over all variants", "units": "1/s"},
@@ -58,6 +71,73 @@ _ABSCISSA_ATTRS = {
 
 class PartError(SweepError):
     """A part file that cannot be used (unreadable, another config, wrong range)."""
+
+
+# ---------------------------------------------------------------- a chunk in memory
+
+
+class Var(NamedTuple):
+    """One variable of a part: dimension names, values, attributes (``long_name``, ``units``)."""
+
+    dims: tuple[str, ...]
+    values: np.ndarray
+    attrs: dict[str, Any]
+
+
+@dataclass
+class Part:
+    """One chunk's results in memory, as written by `write_part` and returned by `read_part`.
+
+    Attributes
+    ----------
+    variables
+        Name -> `Var`, coordinates and data in one mapping (file order).
+    coords
+        Names in ``variables`` that are coordinates: the dimension
+        coordinates (``variant``, ``gain``, ``locus_variant``) and the
+        coordinates along ``variant`` (parameters, ``design``).
+    attrs
+        Global attributes (``config_sha256``, ``variant_start``, ``variant_stop``, ...).
+    """
+
+    variables: dict[str, Var]
+    coords: tuple[str, ...]
+    attrs: dict[str, Any] = field(default_factory=dict)
+
+    def __contains__(self, name: object) -> bool:
+        return name in self.variables
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        return self.variables[name].values
+
+    @property
+    def sizes(self) -> dict[str, int]:
+        """Dimension name -> length (raises `PartError` if two variables disagree)."""
+        sizes: dict[str, int] = {}
+        for name, var in self.variables.items():
+            if len(var.dims) != np.ndim(var.values):
+                raise PartError(f"variable {name}: {len(var.dims)} dimension names for {np.ndim(var.values)} axes")
+            for d, n in zip(var.dims, np.shape(var.values)):
+                if sizes.setdefault(d, int(n)) != n:
+                    raise PartError(f"variable {name}: dimension {d} has length {n}, elsewhere {sizes[d]}")
+        return sizes
+
+    def aux_coords(self) -> list[str]:
+        """Coordinates along ``variant`` that are not ``variant`` itself (parameters, design)."""
+        return [c for c in self.coords if c != "variant" and self.variables[c].dims == ("variant",)]
+
+    def to_dataset(self):
+        """The part as an `xarray.Dataset` (for inspection and tests)."""
+        import xarray as xr
+
+        def triple(v: Var):
+            return (v.dims, v.values, dict(v.attrs))
+
+        return xr.Dataset(
+            {n: triple(v) for n, v in self.variables.items() if n not in self.coords},
+            coords={n: triple(self.variables[n]) for n in self.coords},
+            attrs=dict(self.attrs),
+        )
 
 
 # ---------------------------------------------------------------- atomic files
@@ -95,13 +175,23 @@ def _publish(tmp: Path, path: Path) -> None:
 # ---------------------------------------------------------------- parts
 
 
-def write_part(ds: xr.Dataset, path: str | os.PathLike) -> Path:
-    """Write one chunk's dataset atomically.
+def _nc_kind(values: np.ndarray):
+    return str if values.dtype.kind in "UO" else values.dtype
+
+
+def _put(v: netCDF4.Variable, values: np.ndarray, index=Ellipsis) -> None:
+    if values.size == 0:
+        return  # nothing to write (a zero-length dimension is stored as unlimited)
+    v[index] = values.astype(object) if values.dtype.kind == "U" else values
+
+
+def write_part(part: Part, path: str | os.PathLike) -> Path:
+    """Write one chunk's results atomically.
 
     Parameters
     ----------
-    ds
-        The part dataset (see the module docstring for its layout).
+    part
+        The chunk (see the module docstring for its layout).
     path
         Final name, e.g. ``OUT.parts/chunk-00003.nc``.
 
@@ -112,17 +202,37 @@ def write_part(ds: xr.Dataset, path: str | os.PathLike) -> Path:
     """
     path = Path(path)
     tmp = _tmp_name(path)
-    encoding = {}
-    for name in _COMPRESSED:
-        if name in ds:
-            encoding[name] = {"dtype": "float32", "zlib": True, "complevel": 4, "shuffle": True}
+    sizes = part.sizes
+    aux = " ".join(part.aux_coords())
     try:
-        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
+        with netCDF4.Dataset(tmp, "w", format="NETCDF4") as nc:
+            for dim, n in sizes.items():
+                nc.createDimension(dim, n)  # a size of 0 becomes unlimited: still reads as empty
+            for name, var in part.variables.items():
+                kind = _nc_kind(var.values)
+                if name in _COMPRESSED:
+                    v = nc.createVariable(name, kind, var.dims, zlib=True, complevel=_PART_COMPLEVEL,
+                                          shuffle=True, fill_value=False)
+                else:
+                    v = nc.createVariable(name, kind, var.dims, fill_value=None if kind is str else False)
+                attrs = dict(var.attrs)
+                if aux and name not in part.coords and "variant" in var.dims:
+                    attrs["coordinates"] = aux  # what xarray reads back as coordinates
+                v.setncatts(attrs)
+                _put(v, np.asarray(var.values))
+            nc.setncatts(dict(part.attrs))
         _publish(tmp, path)
     finally:
         if tmp.exists():
             tmp.unlink()
     return path
+
+
+def _plain(value: Any) -> Any:
+    """netCDF attribute value -> plain Python scalar where it is one."""
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
 
 
 def read_part(
@@ -131,8 +241,11 @@ def read_part(
     config_sha256: str | None = None,
     start: int | None = None,
     stop: int | None = None,
-) -> xr.Dataset:
+) -> Part:
     """Read a part file into memory and check that it belongs where it is.
+
+    Every variable is read in full, so a damaged file is found here and not
+    in the merge.
 
     Parameters
     ----------
@@ -145,7 +258,7 @@ def read_part(
 
     Returns
     -------
-    xarray.Dataset
+    Part
         The part, loaded (the file is closed).
 
     Raises
@@ -155,11 +268,34 @@ def read_part(
     """
     path = Path(path)
     try:
-        with xr.open_dataset(path, engine="netcdf4") as ds:
-            ds = ds.load()
+        with netCDF4.Dataset(path) as nc:
+            nc.set_auto_maskandscale(False)
+            attrs = {k: _plain(nc.getncattr(k)) for k in nc.ncattrs()}
+            _check_attrs(path, attrs, config_sha256, start, stop)
+            coords = [n for n in nc.variables if n in nc.dimensions]
+            variables: dict[str, Var] = {}
+            for name, v in nc.variables.items():
+                va = {k: _plain(v.getncattr(k)) for k in v.ncattrs()}
+                for c in str(va.pop("coordinates", "")).split():
+                    if c not in coords:
+                        coords.append(c)
+                va = {k: x for k, x in va.items() if not k.startswith("_")}
+                variables[name] = Var(tuple(v.dimensions), np.asarray(v[...]), va)
+    except PartError:
+        raise
     except Exception as err:  # any failure to read means "compute it again"
         raise PartError(f"{path.name}: unreadable ({type(err).__name__}: {err})") from None
-    attrs = ds.attrs
+    part = Part(variables, tuple(c for c in variables if c in coords), attrs)
+    p_start, p_stop = int(attrs["variant_start"]), int(attrs["variant_stop"])
+    if "variant" not in part or not np.array_equal(part["variant"], np.arange(p_start, p_stop)):
+        raise PartError(f"{path.name}: variant coordinate does not match its range")
+    missing = [v for v in ENVELOPE_VARS if v not in part]
+    if missing:
+        raise PartError(f"{path.name}: missing {', '.join(missing)}")
+    return part
+
+
+def _check_attrs(path: Path, attrs: Mapping[str, Any], config_sha256, start, stop) -> None:
     if config_sha256 is not None and attrs.get("config_sha256") != config_sha256:
         raise PartError(f"{path.name}: written for another config")
     try:
@@ -168,12 +304,6 @@ def read_part(
         raise PartError(f"{path.name}: no variant range") from None
     if (start is not None and p_start != start) or (stop is not None and p_stop != stop):
         raise PartError(f"{path.name}: holds variants {p_start}..{p_stop}, expected {start}..{stop}")
-    if "variant" not in ds.dims or not np.array_equal(ds["variant"].values, np.arange(p_start, p_stop)):
-        raise PartError(f"{path.name}: variant coordinate does not match its range")
-    missing = [v for v in ENVELOPE_VARS if v not in ds]
-    if missing:
-        raise PartError(f"{path.name}: missing {', '.join(missing)}")
-    return ds
 
 
 # ---------------------------------------------------------------- result
@@ -183,8 +313,11 @@ def result_attrs(config, *, created: str, sweep_version: str) -> dict[str, str |
     """Global attributes of a result file (DESIGN section 4).
 
     Only the config's contents and library versions: no host, user or path.
+    The versions of scipy and xarray are read from the installed package
+    metadata (the same strings as their ``__version__``), so writing a
+    result does not import them.
     """
-    import scipy
+    from importlib.metadata import version
 
     return {
         "title": config.title,
@@ -196,33 +329,183 @@ def result_attrs(config, *, created: str, sweep_version: str) -> dict[str, str |
         "created": created,
         "sweep_version": sweep_version,
         "numpy_version": np.__version__,
-        "scipy_version": scipy.__version__,
-        "xarray_version": xr.__version__,
+        "scipy_version": version("scipy"),
+        "xarray_version": version("xarray"),
         "netCDF4_version": netCDF4.__version__,
     }
 
 
-def _nc_type(values: np.ndarray):
-    if values.dtype.kind in "UO":
-        return str
-    return values.dtype
-
-
-def _define(out: netCDF4.Dataset, name: str, var: xr.Variable, coords_attr: str | None) -> None:
+def _define(out: netCDF4.Dataset, name: str, var: Var, coords_attr: str | None) -> netCDF4.Variable:
+    kind = _nc_kind(var.values)
     if name in _COMPRESSED:
         g = out.dimensions["gain"].size if "gain" in out.dimensions else 1
         b = out.dimensions["branch"].size if "branch" in out.dimensions else 1
+        k = out.dimensions["locus_variant"].size if "locus_variant" in out.dimensions else 1
+        rows = max(1, min(k, _RESULT_CHUNK_VALUES // max(1, g * b)))
         v = out.createVariable(
-            name, np.float32, var.dims, zlib=True, complevel=4, shuffle=True,
-            chunksizes=(1, max(1, g), max(1, b)), fill_value=False,
+            name, np.float32, var.dims, zlib=True, complevel=_RESULT_COMPLEVEL, shuffle=True,
+            chunksizes=(rows, max(1, g), max(1, b)), fill_value=False,
         )
     else:
-        kind = _nc_type(var.values)
         v = out.createVariable(name, kind, var.dims, fill_value=None if kind is str else False)
     attrs = {k: val for k, val in var.attrs.items() if not k.startswith("_") and k != "coordinates"}
     if coords_attr:
         attrs["coordinates"] = coords_attr
     v.setncatts(attrs)
+    return v
+
+
+def _same_layout(first: Part, part: Part, name: str) -> None:
+    """A part must hold the same variables, with the same widths, as the first one."""
+    hint = "; remove the parts folder and run again (written by another version of sweep?)"
+    if list(part.variables) != list(first.variables):
+        raise PartError(f"{name}: holds other variables than the first part{hint}")
+    for vname, var in part.variables.items():
+        ref = first.variables[vname]
+        if var.dims != ref.dims or any(
+            d not in ("variant", "locus_variant") and a != b
+            for d, a, b in zip(var.dims, np.shape(var.values), np.shape(ref.values))
+        ):
+            raise PartError(f"{name}: variable {vname} has another shape than in the first part{hint}")
+
+
+class ResultWriter:
+    """Builds the result file from parts that arrive in any order, then publishes it.
+
+    The file is written under a temporary name beside ``out_path``; each
+    `add` writes one part's slices at their final place (variants by index,
+    kept loci by their rank among all kept variants), so a run can merge
+    every chunk as soon as it is computed and the end of the run only
+    folds the envelopes and renames the file. Memory holds one part at a
+    time plus four ``(G,)`` envelope arrays per chunk.
+
+    Parameters
+    ----------
+    out_path
+        The result file.
+    total
+        Number of variants of the whole sweep.
+    kept
+        Sorted global indices of the variants whose locus is kept.
+    """
+
+    def __init__(self, out_path: str | os.PathLike, *, total: int, kept: np.ndarray):
+        self.out_path = Path(out_path)
+        self.tmp = _tmp_name(self.out_path)
+        self.total = int(total)
+        self.kept = np.asarray(kept, dtype=np.int64)
+        self._nc: netCDF4.Dataset | None = None
+        self._first: Part | None = None
+        self._names: list[str] = []
+        self._envelopes: dict[int, tuple[int, tuple[np.ndarray, ...]]] = {}  # start -> (stop, arrays)
+        self.added = 0
+
+    def _create(self, part: Part) -> None:
+        nc = netCDF4.Dataset(self.tmp, "w", format="NETCDF4")
+        self._nc = nc
+        for dim, size in part.sizes.items():
+            n = {"variant": self.total, "locus_variant": self.kept.size}.get(dim, size)
+            nc.createDimension(dim, n)  # a size of 0 becomes unlimited: still reads as empty
+        aux = " ".join(part.aux_coords())
+        self._names = list(part.coords) + [
+            n for n in part.variables if n not in part.coords and n not in ENVELOPE_VARS
+        ]
+        for name in self._names:
+            var = part.variables[name]
+            _define(nc, name, var, aux if (name not in part.coords and "variant" in var.dims) else None)
+        for name, a in _ABSCISSA_ATTRS.items():
+            nc.createVariable(name, np.float64, ("gain",), fill_value=False).setncatts(a)
+        self._first = part
+
+    def add(self, part: Part, name: str = "part") -> None:
+        """Write one part into the result.
+
+        Parameters
+        ----------
+        part
+            A part with attributes ``variant_start`` and ``variant_stop``.
+        name
+            What to call the part in error messages (its file name).
+
+        Raises
+        ------
+        PartError
+            Laid out unlike the first part, outside the sweep, or its kept
+            loci are not the ones expected there.
+        """
+        a, b = int(part.attrs["variant_start"]), int(part.attrs["variant_stop"])
+        if not 0 <= a <= b <= self.total:
+            raise PartError(f"{name}: variants {a}..{b} outside the sweep of {self.total}")
+        if a in self._envelopes:
+            raise PartError(f"{name}: variants from {a} were already merged")
+        if self._nc is None:
+            self._create(part)
+        else:
+            _same_layout(self._first, part, name)
+        k0 = int(np.searchsorted(self.kept, a))
+        lv = part["locus_variant"] if "locus_variant" in part else np.zeros(0, np.int64)
+        if not np.array_equal(self.kept[k0:k0 + lv.size], lv) or (
+                lv.size != int(np.searchsorted(self.kept, b)) - k0):
+            raise PartError(f"{name}: its kept loci are not the ones chosen for variants {a}..{b - 1}")
+        nc = self._nc
+        for vname in self._names:
+            var = part.variables[vname]
+            if "variant" in var.dims:
+                _put(nc[vname], var.values, slice(a, b))
+            elif "locus_variant" in var.dims:
+                _put(nc[vname], var.values, slice(k0, k0 + lv.size))
+            elif self.added == 0:
+                _put(nc[vname], var.values)
+        self._envelopes[a] = (b, tuple(np.asarray(part[v]) for v in ENVELOPE_VARS))
+        self.added += 1
+
+    def finish(self, attrs: Mapping[str, object]) -> Path:
+        """Fold the envelopes in variant order, set the global attributes, publish the file.
+
+        Raises
+        ------
+        PartError
+            The parts added do not tile ``0 .. total``.
+        """
+        from .locus import Envelope
+
+        if self._nc is None:
+            raise SweepError("no parts to merge")
+        env, expect = None, 0
+        for a in sorted(self._envelopes):  # a fixed order: the sums (and the mean) do not depend on arrival
+            if a != expect:
+                raise PartError(f"the parts do not tile the sweep: variants from {expect} are missing")
+            b, arrays = self._envelopes[a]
+            part_env = Envelope.from_arrays(*arrays)
+            env = part_env if env is None else env.merge(part_env)
+            expect = b
+        if expect != self.total:
+            raise PartError(f"the parts do not tile the sweep: variants from {expect} are missing")
+        nc = self._nc
+        nc["abscissa_min"][:] = env.min
+        nc["abscissa_max"][:] = env.max
+        nc["abscissa_mean"][:] = env.mean
+        nc.setncatts(dict(attrs))
+        nc.close()
+        self._nc = None
+        _publish(self.tmp, self.out_path)
+        return self.out_path
+
+    def sync(self) -> None:
+        """Flush what has been written so far (for the kill tests)."""
+        if self._nc is not None:
+            self._nc.sync()
+
+    def abort(self) -> None:
+        """Close and delete the temporary file (the parts stay)."""
+        if self._nc is not None:
+            try:
+                self._nc.close()
+            except Exception:
+                pass
+            self._nc = None
+        if self.tmp.exists():
+            self.tmp.unlink()
 
 
 def merge_parts(
@@ -232,7 +515,7 @@ def merge_parts(
     *,
     _after_part: Callable[[int], None] | None = None,
 ) -> Path:
-    """Merge part files (in the given order, contiguous variant ranges) into one result.
+    """Merge part files (contiguous variant ranges, in chunk order) into one result.
 
     Parameters
     ----------
@@ -249,83 +532,42 @@ def merge_parts(
     -------
     Path
         ``out_path``.
+
+    Raises
+    ------
+    PartError
+        A part is unreadable, out of order, or laid out unlike the first.
     """
     paths = [Path(p) for p in part_paths]
     if not paths:
         raise SweepError("no parts to merge")
-    out_path = Path(out_path)
-    # pass 1: headers only, to size the dimensions and check the tiling
-    total, kept, expect = 0, 0, 0
+    # pass 1: headers and kept indices only, to size the dimensions and check the tiling
+    total, kept, ranges = 0, [], []
     for p in paths:
-        with netCDF4.Dataset(p) as nc:
-            a, b = int(nc.getncattr("variant_start")), int(nc.getncattr("variant_stop"))
-            if a != expect:
-                raise PartError(f"{p.name}: starts at variant {a}, expected {expect}")
-            expect = b
-            total = b
-            kept += nc.dimensions["locus_variant"].size if "locus_variant" in nc.dimensions else 0
-
-    first = read_part(paths[0])
-    tmp = _tmp_name(out_path)
+        try:
+            with netCDF4.Dataset(p) as nc:
+                a, b = int(nc.getncattr("variant_start")), int(nc.getncattr("variant_stop"))
+                if "locus_variant" in nc.variables:
+                    kept.append(np.asarray(nc["locus_variant"][:], dtype=np.int64))
+        except Exception as err:
+            raise PartError(f"{p.name}: unreadable ({type(err).__name__}: {err})") from None
+        if a != total:
+            raise PartError(f"{p.name}: starts at variant {a}, expected {total}")
+        ranges.append((a, b))
+        total = b
+    writer = ResultWriter(out_path, total=total, kept=np.concatenate(kept) if kept else np.zeros(0, np.int64))
     try:
-        with netCDF4.Dataset(tmp, "w", format="NETCDF4") as out:
-            for dim, size in first.sizes.items():
-                n = {"variant": total, "locus_variant": kept}.get(dim, size)
-                out.createDimension(dim, n)  # a size of 0 becomes unlimited: still reads as empty
-            # coordinates along variant (parameters, design) are named in each variable's attribute
-            var_coords = [
-                c for c in first.coords if c not in first.dims and first[c].dims == ("variant",)
-            ]
-            names = [n for n in list(first.coords) + list(first.data_vars) if n not in ENVELOPE_VARS]
-            for name in names:
-                var = first[name].variable
-                ca = " ".join(var_coords) if (name in first.data_vars and "variant" in var.dims) else None
-                _define(out, name, var, ca)
-            for name, a in _ABSCISSA_ATTRS.items():
-                v = out.createVariable(name, np.float64, ("gain",), fill_value=False)
-                v.setncatts(a)
-            out.setncatts(dict(attrs))
-
-            env = None
-            kv = 0
-            for i, p in enumerate(paths):
-                ds = first if i == 0 else read_part(p)
-                a, b = int(ds.attrs["variant_start"]), int(ds.attrs["variant_stop"])
-                nk = int(ds.sizes.get("locus_variant", 0))
-                for name in names:
-                    var = ds[name].variable
-                    if "variant" in var.dims:
-                        out[name][a:b, ...] = _values(var)
-                    elif "locus_variant" in var.dims:
-                        if nk:
-                            out[name][kv:kv + nk, ...] = _values(var)
-                    elif i == 0:
-                        out[name][...] = _values(var)
-                kv += nk
-                if _after_part is not None:
-                    out.sync()
-                    _after_part(i + 1)
-                part_env = Envelope.from_arrays(*(ds[v].values for v in ENVELOPE_VARS))
-                env = part_env if env is None else env.merge(part_env)
-                del ds
-            out["abscissa_min"][:] = env.min
-            out["abscissa_max"][:] = env.max
-            out["abscissa_mean"][:] = env.mean
-        _publish(tmp, out_path)
+        for i, p in enumerate(paths):
+            writer.add(read_part(p, start=ranges[i][0], stop=ranges[i][1]), p.name)
+            if _after_part is not None:
+                writer.sync()
+                _after_part(i + 1)
+        return writer.finish(attrs)
     finally:
-        if tmp.exists():
-            tmp.unlink()
-    return out_path
+        writer.abort()
 
 
-def _values(var: xr.Variable) -> np.ndarray:
-    v = var.values
-    if v.dtype.kind == "U":  # netCDF4 writes variable-length strings from objects
-        return v.astype(object)
-    return v
-
-
-def open_result(path: str | os.PathLike) -> xr.Dataset:
+def open_result(path: str | os.PathLike):
     """Open a result file (lazily) with plain xarray.
 
     Parameters
@@ -337,7 +579,19 @@ def open_result(path: str | os.PathLike) -> xr.Dataset:
     -------
     xarray.Dataset
     """
+    import xarray as xr
+
     return xr.open_dataset(Path(path), engine="netcdf4")
+
+
+def result_is_complete(path: str | os.PathLike, *, config_sha256: str, sweep_version: str) -> bool:
+    """True if ``path`` is a readable result of this config written by this sweep version."""
+    try:
+        with netCDF4.Dataset(Path(path)) as nc:
+            return (nc.getncattr("config_sha256") == config_sha256
+                    and nc.getncattr("sweep_version") == sweep_version)
+    except Exception:
+        return False
 
 
 # ---------------------------------------------------------------------------

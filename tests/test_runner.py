@@ -81,17 +81,17 @@ SCRIPT = textwrap.dedent(
     import test_runner
     from sweep import runner
     from sweep.config import load_config
-    runner.run(load_config({cfg!r}), out={out!r}, jobs=1, quiet=True)
+    runner.run(load_config({cfg!r}), out={out!r}, jobs={jobs}, quiet=True)
     """
 )
 
 
-def spawn(cfg: Path, out: Path, pause: str | None) -> subprocess.Popen:
+def spawn(cfg: Path, out: Path, pause: str | None, jobs: int = 1) -> subprocess.Popen:
     env = dict(os.environ)
     env.pop("SWEEP_TEST_PAUSE", None)
     if pause:
         env["SWEEP_TEST_PAUSE"] = pause
-    code = SCRIPT.format(tests=str(HERE), cfg=str(cfg), out=str(out))
+    code = SCRIPT.format(tests=str(HERE), cfg=str(cfg), out=str(out), jobs=jobs)
     return subprocess.Popen([sys.executable, "-c", code], env=env, cwd=cfg.parent)
 
 
@@ -177,37 +177,96 @@ def test_plain_open_result_and_parts_removed(tmp_path, reference):
     xr.testing.assert_identical(load(out), reference)
 
 
-@pytest.mark.slow
-@pytest.mark.parametrize("pause", ["chunks:0", "chunks:3", "merge:2"])
-def test_sigkill_then_resume_is_identical(tmp_path, reference, pause):
-    cfg_path = write_config(tmp_path)
-    out = tmp_path / "k.nc"
-    proc = spawn(cfg_path, out, pause)
+def children(pid: int) -> list[int]:
+    """Processes whose parent is ``pid`` (Linux /proc)."""
+    found = []
+    for d in Path("/proc").iterdir():
+        if d.name.isdigit():
+            try:
+                if int((d / "stat").read_text().rsplit(")", 1)[1].split()[1]) == pid:
+                    found.append(int(d.name))
+            except (OSError, IndexError, ValueError):
+                pass
+    return found
+
+
+def kill_at(cfg: Path, out: Path, pause: str, jobs: int = 1) -> list[int]:
+    """Run in a subprocess until it logs the pause ``pause``, then SIGKILL it; returns its children."""
+    proc = spawn(cfg, out, pause, jobs)
     try:
         wait_for_log(out, f"test pause {pause}", proc)
+        kids = children(proc.pid)
         proc.send_signal(signal.SIGKILL)
         proc.wait(10)
     finally:
         if proc.poll() is None:
             proc.kill()
-    assert not out.exists()
+    return kids
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("pause", ["chunks:0", "chunks:3", "merge:2", "cleanup:0"])
+def test_sigkill_then_resume_is_identical(tmp_path, reference, pause):
+    cfg_path = write_config(tmp_path)
+    out = tmp_path / "k.nc"
+    kill_at(cfg_path, out, pause)
     parts = sorted(p.name for p in (tmp_path / "k.nc.parts").glob("chunk-*.nc"))
-    assert len(parts) == {"chunks:0": 0, "chunks:3": 3, "merge:2": 6}[pause]
+    # the result is merged while the chunks are computed: at merge:2 two parts exist and the
+    # result is half written under its temporary name; at cleanup:0 it is complete, the parts not yet removed
+    assert len(parts) == {"chunks:0": 0, "chunks:3": 3, "merge:2": 2, "cleanup:0": 6}[pause]
+    assert out.exists() == (pause == "cleanup:0")
     assert (tmp_path / "k.nc.lock").exists()  # left behind by the killed run: stale
     if pause.startswith("merge"):
-        assert list(tmp_path.glob(".k.nc.tmp-*"))  # the half-merged file, under its temporary name
+        assert list(tmp_path.glob(".k.nc.tmp-*"))
     runner.run(load_config(cfg_path), out=out, jobs=1, resume=True, quiet=True)
     log = (tmp_path / "k.nc.log").read_text()
     assert "taking over stale lock" in log
-    assert f"{len(parts)} valid on disk" in log
+    if pause == "cleanup:0":
+        assert "already complete" in log
+    else:
+        assert f"{len(parts)} valid on disk" in log
     xr.testing.assert_identical(load(out), reference)
-    assert not list(tmp_path.glob(".k.nc.tmp-*"))
+    assert not list(tmp_path.glob(".k.nc.tmp-*")) and not (tmp_path / "k.nc.parts").exists()
+
+
+@pytest.mark.slow
+def test_killed_twice_then_resumed_is_identical(tmp_path, reference):
+    """Killed while computing, killed again while the resumed run merges the parts on disk."""
+    cfg_path = write_config(tmp_path)
+    out = tmp_path / "k2.nc"
+    kill_at(cfg_path, out, "chunks:4")
+    kill_at(cfg_path, out, "merge:2")  # 2 of the 4 valid parts merged into the new temporary result
+    assert len(list((tmp_path / "k2.nc.parts").glob("chunk-*.nc"))) == 4
+    # what a kill in the middle of writing a part leaves: a temporary file, never a final name
+    (tmp_path / "k2.nc.parts" / ".chunk-00004.nc.tmp-99999").write_bytes(b"half a file")
+    runner.run(load_config(cfg_path), out=out, jobs=1, resume=True, quiet=True)
+    log = (tmp_path / "k2.nc.log").read_text()
+    assert "removed leftover .chunk-00004.nc.tmp-99999" in log and "4 valid on disk, 2 to compute" in log
+    xr.testing.assert_identical(load(out), reference)
+
+
+@pytest.mark.slow
+def test_sigkill_parallel_run_then_resume_is_identical(tmp_path, reference):
+    """A -j 2 run killed mid-way (its worker is orphaned), resumed with -j 2."""
+    cfg_path = write_config(tmp_path)
+    out = tmp_path / "kp.nc"
+    workers = kill_at(cfg_path, out, "chunks:2", jobs=2)
+    assert workers  # at least the joblib worker
+    assert len(list((tmp_path / "kp.nc.parts").glob("chunk-*.nc"))) >= 2
+    t0 = time.time()  # the worker follows its run
+    while any(Path(f"/proc/{w}/cmdline").exists() and b"loky" in Path(f"/proc/{w}/cmdline").read_bytes()
+              for w in workers) and time.time() - t0 < 20:
+        time.sleep(0.1)
+    assert time.time() - t0 < 20, "a worker outlived its run"
+    runner.run(load_config(cfg_path), out=out, jobs=2, resume=True, quiet=True)
+    xr.testing.assert_identical(load(out), reference)
+    assert not (tmp_path / "kp.nc.parts").exists()
 
 
 def test_changed_config_refused(tmp_path, monkeypatch):
     cfg_path = write_config(tmp_path)
     out = tmp_path / "c.nc"
-    monkeypatch.setattr(runner.store, "merge_parts", _boom)
+    monkeypatch.setattr(runner.store.ResultWriter, "finish", _boom)
     with pytest.raises(RuntimeError, match="stop before merge"):
         runner.run(load_config(cfg_path), out=out, jobs=1, quiet=True)
     monkeypatch.undo()
@@ -224,7 +283,7 @@ def _boom(*a, **k):
 def test_corrupt_part_recomputed(tmp_path, reference, monkeypatch):
     cfg_path = write_config(tmp_path)
     out = tmp_path / "p.nc"
-    monkeypatch.setattr(runner.store, "merge_parts", _boom)
+    monkeypatch.setattr(runner.store.ResultWriter, "finish", _boom)
     with pytest.raises(RuntimeError):
         runner.run(load_config(cfg_path), out=out, jobs=1, quiet=True)
     monkeypatch.undo()

@@ -12,43 +12,53 @@ from sweep import store
 G, B = 5, 3
 
 
-def fake_part(start: int, stop: int, kept=(), sha="abc") -> xr.Dataset:
+def fake_part(start: int, stop: int, kept=(), sha="abc") -> store.Part:
     """A synthetic part in the layout `sweep.runner.compute_chunk` produces."""
+    V = store.Var
     v = np.arange(start, stop)
     n = v.size
     rng = np.random.default_rng(start)
     kept = np.array([k for k in kept if start <= k < stop], dtype=np.int64)
     ab = rng.normal(size=(n, G))
-    ds = xr.Dataset(
-        {
-            "critical_gain": ("variant", rng.random(n), {"long_name": "critical gain", "units": "1"}),
-            "stable_above": (("variant", "boundary"), np.full((n, 2), -1, np.int8), {"long_name": "s", "units": "1"}),
-            "open_loop_zero_real": (("variant", "zero"), np.zeros((n, 0)), {"long_name": "z", "units": "1/s"}),
-            "locus_real": (("locus_variant", "gain", "branch"), rng.random((kept.size, G, B)).astype(np.float32),
-                           {"long_name": "lr", "units": "1/s"}),
-            "envelope_min": ("gain", ab.min(0)),
-            "envelope_max": ("gain", ab.max(0)),
-            "envelope_sum": ("gain", ab.sum(0)),
-            "envelope_count": ("gain", np.full(G, n, np.int64)),
-        },
-        coords={
-            "variant": ("variant", v, {"long_name": "variant index", "units": "1"}),
-            "R": ("variant", 1 + 0.01 * v, {"long_name": "parameter R", "units": "ohm"}),
-            "design": ("variant", np.where(v == 0, "nominal", "random"), {"long_name": "design", "units": ""}),
-            "gain": ("gain", np.geomspace(0.1, 10, G), {"long_name": "gain", "units": "1"}),
-            "locus_variant": ("locus_variant", kept, {"long_name": "variant of the locus", "units": "1"}),
-        },
-        attrs={"config_sha256": sha, "variant_start": start, "variant_stop": stop},
-    )
-    ds["critical_gain"][0] = np.nan
-    return ds
+    cg = rng.random(n)
+    cg[0] = np.nan
+    coords = {
+        "variant": V(("variant",), v, {"long_name": "variant index", "units": "1"}),
+        "R": V(("variant",), 1 + 0.01 * v, {"long_name": "parameter R", "units": "ohm"}),
+        "design": V(("variant",), np.where(v == 0, "nominal", "random"), {"long_name": "design", "units": ""}),
+        "gain": V(("gain",), np.geomspace(0.1, 10, G), {"long_name": "gain", "units": "1"}),
+        "locus_variant": V(("locus_variant",), kept, {"long_name": "variant of the locus", "units": "1"}),
+    }
+    data = {
+        "critical_gain": V(("variant",), cg, {"long_name": "critical gain", "units": "1"}),
+        "stable_above": V(("variant", "boundary"), np.full((n, 2), -1, np.int8), {"long_name": "s", "units": "1"}),
+        "open_loop_zero_real": V(("variant", "zero"), np.zeros((n, 0)), {"long_name": "z", "units": "1/s"}),
+        "locus_real": V(("locus_variant", "gain", "branch"), rng.random((kept.size, G, B)).astype(np.float32),
+                        {"long_name": "lr", "units": "1/s"}),
+        "envelope_min": V(("gain",), ab.min(0), {}),
+        "envelope_max": V(("gain",), ab.max(0), {}),
+        "envelope_sum": V(("gain",), ab.sum(0), {}),
+        "envelope_count": V(("gain",), np.full(G, n, np.int64), {}),
+    }
+    return store.Part({**coords, **data}, tuple(coords),
+                      {"config_sha256": sha, "variant_start": start, "variant_stop": stop})
 
 
 def test_write_read_roundtrip_and_validation(tmp_path):
     p = store.write_part(fake_part(0, 4, kept=[1]), tmp_path / "chunk-00000.nc")
     assert [f.name for f in tmp_path.iterdir()] == ["chunk-00000.nc"]  # no temporary left
-    ds = store.read_part(p, config_sha256="abc", start=0, stop=4)
-    assert np.isnan(ds.critical_gain[0]) and str(ds.design[0].values) == "nominal"
+    part = store.read_part(p, config_sha256="abc", start=0, stop=4)
+    assert np.isnan(part["critical_gain"][0]) and part["design"][0] == "nominal"
+    written = fake_part(0, 4, kept=[1])
+    assert part.coords == written.coords and part.attrs == written.attrs
+    for name, var in written.variables.items():  # every variable back exactly, with its dims and attributes
+        got = part.variables[name]
+        assert got.dims == var.dims and got.attrs == var.attrs, name
+        assert got.values.dtype == var.values.dtype or var.values.dtype.kind == "U", name
+        np.testing.assert_array_equal(got.values.astype(var.values.dtype), var.values)
+    # a part is also a plain netCDF file that xarray reads, with the parameters as coordinates
+    with xr.open_dataset(p) as ds:
+        assert "R" in ds.coords and "design" in ds.coords and ds.sizes["variant"] == 4
     with pytest.raises(store.PartError, match="another config"):
         store.read_part(p, config_sha256="other")
     with pytest.raises(store.PartError, match="expected"):
@@ -65,15 +75,13 @@ def test_merge(tmp_path):
     out = store.merge_parts(paths, tmp_path / "r.nc", {"title": "pump", "seed": 0})
     with xr.open_dataset(out) as ds:
         ds = ds.load()
-    whole = xr.concat([d.drop_dims("locus_variant") for d in parts], dim="variant", data_vars="minimal",
-                      coords="minimal", compat="override")
-    np.testing.assert_array_equal(ds.critical_gain, whole.critical_gain)
-    np.testing.assert_array_equal(ds.R, whole.R)
+    np.testing.assert_array_equal(ds.critical_gain, np.concatenate([d["critical_gain"] for d in parts]))
+    np.testing.assert_array_equal(ds.R, np.concatenate([d["R"] for d in parts]))
     assert ds.design.dtype.kind in "UO" and list(ds.design.values[:2]) == ["nominal", "random"]
     assert set(ds.coords) >= {"variant", "R", "design", "gain", "locus_variant"}
     np.testing.assert_array_equal(ds.locus_variant, [0, 5, 9])
     np.testing.assert_array_equal(ds.locus_real.values,
-                                  np.concatenate([d.locus_real.values for d in parts]))
+                                  np.concatenate([d["locus_real"] for d in parts]))
     assert ds.locus_real.dtype == np.float32 and ds.locus_real.encoding["zlib"]
     assert ds.sizes["zero"] == 0 and ds.stable_above.dtype == np.int8
     ab = np.concatenate([np.random.default_rng(a).normal(size=(min(a + 4, 10) - a, G)) for a in range(0, 10, 4)])
