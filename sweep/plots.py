@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import os
 from pathlib import Path
 from typing import Any, Sequence
 
@@ -51,13 +52,30 @@ _STYLE = {
 }
 
 
-def _plt():
-    import matplotlib
+class _Figures:
+    """The two pyplot calls the figures use, without pyplot.
 
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
+    Figures are plain ``matplotlib.figure.Figure`` objects: no backend is
+    chosen or forced (a notebook keeps its own), nothing is registered in
+    pyplot's figure manager, and ``savefig`` works headless.
+    """
 
-    return plt
+    @staticmethod
+    def rc_context(rc):
+        import matplotlib
+
+        return matplotlib.rc_context(rc)
+
+    @staticmethod
+    def subplots(nrows: int = 1, ncols: int = 1, *, figsize, dpi, **kw):
+        from matplotlib.figure import Figure
+
+        fig = Figure(figsize=figsize, dpi=dpi)
+        return fig, fig.subplots(nrows, ncols, **kw)
+
+
+def _plt() -> type[_Figures]:
+    return _Figures
 
 
 # ------------------------------------------------------------------ helpers
@@ -73,15 +91,45 @@ def _label(ds: xr.Dataset, name: str, text: str | None = None) -> str:
     return f"{t} [{u}]" if u else t
 
 
-def _scaled(ds: xr.Dataset, name: str) -> tuple[np.ndarray, str]:
-    """Values of a parameter and an axis label, with a power of ten moved into the label."""
+def _scale(ds: xr.Dataset, name: str) -> tuple[float, str]:
+    """Factor and axis label for a parameter, a power of ten moved into the label when needed."""
     x = np.asarray(ds[name].values, float)
     big = float(np.nanmax(np.abs(x))) if x.size else 0.0
     e = int(math.floor(math.log10(big))) if big > 0 and math.isfinite(big) else 0
     if -2 <= e <= 3:
-        return x, _label(ds, name)
+        return 1.0, _label(ds, name)
     u = _units(ds, name)
-    return x / 10.0**e, f"{name} [$10^{{{e}}}$ {u}]" if u else f"{name} [$10^{{{e}}}$]"
+    return 10.0**-e, (f"{name} [$10^{{{e}}}$ {u}]" if u else f"{name} [$10^{{{e}}}$]")
+
+
+def _scaled(ds: xr.Dataset, name: str) -> tuple[np.ndarray, str]:
+    """Values of a parameter and an axis label, with a power of ten moved into the label."""
+    factor, label = _scale(ds, name)
+    return np.asarray(ds[name].values, float) * factor, label
+
+
+def _log_axis(axis, lo: float, hi: float) -> None:
+    """A log scale with plain labels: decades only over wide spans, else 1-2-5 steps."""
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    axis.axes.set_yscale("log") if axis.axis_name == "y" else axis.axes.set_xscale("log")
+    decades = math.log10(hi / lo) if lo > 0 and hi > lo else 1.0
+    subs = (1.0,) if decades > 4 else (1.0, 2.0, 5.0) if decades > 1.2 else (1.0, 1.5, 2.0, 3.0, 5.0, 7.0)
+    axis.set_major_locator(LogLocator(base=10, subs=subs))
+    axis.set_minor_formatter(NullFormatter())
+    axis.set_major_formatter(FuncFormatter(lambda v, _pos: _tick(v)))
+
+
+def _tick(v: float) -> str:
+    """Tick label: plain for ordinary sizes, engineering style (12k, 3M) for large ones."""
+    if v == 0:
+        return "0"
+    a = abs(v)
+    if a >= 1e4:
+        for div, suffix in ((1e12, "T"), (1e9, "G"), (1e6, "M"), (1e3, "k")):
+            if a >= div:
+                return f"{v / div:g}{suffix}"
+    return f"{v:g}"
 
 
 def _title(fig, ds: xr.Dataset, subtitle: str) -> None:
@@ -106,25 +154,106 @@ def _need(ds: xr.Dataset, names: Sequence[str], what: str, fix: str) -> None:
                          field=missing[0])
 
 
-def _fmt(x: float) -> str:
-    if x is None or (isinstance(x, float) and math.isnan(x)):
+def _fmt(x: float | None) -> str:
+    """A number for labels: 4 significant digits, 33.88k rather than 3.388e+04."""
+    if x is None or math.isnan(x):
         return "-"
     if math.isinf(x):
-        return "inf"
+        return "inf" if x > 0 else "-inf"
+    a = abs(x)
+    for start, div, suffix in ((1e12, 1e12, "T"), (1e9, 1e9, "G"), (1e6, 1e6, "M"), (1e4, 1e3, "k")):
+        if a >= start:
+            return f"{x / div:.4g}{suffix}"
     return f"{x:.4g}"
 
 
 # ------------------------------------------------------------------ locus
 
+MAX_LOCUS_LINES = 1500  # more stored loci than this are thinned evenly (the spread stays visible)
+
+
+def _recomputed_loci(ds: xr.Dataset, indices: Sequence[int], gains: np.ndarray) -> dict[int, np.ndarray]:
+    """Loci of a few variants whose loci the sweep did not keep, from the stored config.
+
+    Returns ``{index: complex (G, n)}``; empty when the config cannot be
+    rebuilt (the figure then says the locus is not stored).
+    """
+    text = ds.attrs.get("config")
+    if not text or not indices:
+        return {}
+    try:
+        from .config import parse_config
+        from .locus import trace
+        from .loop import assemble
+
+        cfg = parse_config(str(text), source="<result file>")
+        values = {p.name: np.asarray(ds[p.name].values[list(indices)], float) for p in cfg.parameters}
+        N, D = assemble(cfg, values)
+        roots = trace(N, D, sigma=cfg.sigma, gains=gains)
+    except Exception:  # noqa: BLE001 - a figure without these two loci is still a figure
+        return {}
+    if roots.shape[1] != gains.size:
+        return {}
+    return {int(i): roots[j] for j, i in enumerate(indices)}
+
+
+def _locus_view(pz: np.ndarray, wc_f: np.ndarray, wcrit: np.ndarray, bp: np.ndarray,
+                re: np.ndarray, must: np.ndarray) -> tuple[float, float, float]:
+    """A window (x_lo, x_hi, y_half) around the crossings and the slow poles and zeros.
+
+    ``must`` are points always inside (the closed-loop poles of the nominal
+    and the worst case at the operating gain).
+    """
+    mags = np.abs(pz)
+    nonzero = mags[mags > 0]
+    candidates = []
+    if wc_f.size:
+        candidates.append(float(wc_f.max()))
+    if nonzero.size:
+        candidates.append(float(np.median(nonzero)))
+    if bp.size:
+        candidates.append(float(np.abs(bp).max()))
+    # the crossings at the critical gains set the scale when there are any (that is where
+    # stability is lost); the 90th percentile, so a few far crossings do not shrink the rest
+    if wcrit.size:
+        scale = float(np.percentile(wcrit, 90))
+    elif wc_f.size:
+        scale = float(np.percentile(wc_f, 90))
+    else:
+        scale = max(candidates) if candidates else 1.0
+    if not candidates or scale <= 0:
+        finite = np.abs(re[np.isfinite(re)])
+        scale = float(np.median(finite)) if finite.size and np.median(finite) > 0 else 1.0
+    reach = 4.0 * scale  # open-loop points beyond this are "outside the view"
+    inside = np.concatenate([pz[np.abs(pz) <= reach], must[np.isfinite(must)]])
+    xs = [0.0] + list(inside.real) + list(bp[np.abs(bp) <= reach])
+    ys = [0.0] + list(np.abs(inside.imag)) + list(wc_f[wc_f <= 1.5 * scale])
+    y_half = 1.25 * max(max(ys), 0.25 * scale, 1e-12)
+    x_lo = min(xs) - 0.15 * (max(xs) - min(xs) + y_half)
+    x_hi = max(max(xs), 0.0) + 0.35 * y_half
+    # at least a square-ish window so the branches leaving for the asymptotes can be seen
+    if x_hi - x_lo < y_half:
+        x_lo = min(x_lo, -0.75 * y_half)
+        x_hi = max(x_hi, 0.35 * y_half)
+    return x_lo, x_hi, y_half
+
+
 def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
     """Spread of the root-locus branches of the kept variants.
 
-    Every kept variant's branches are thin translucent lines, the nominal's
-    bold; open-loop poles (x) and zeros (o) of every variant are marked (the
-    nominal's larger), every variant's crossing of the imaginary axis at
-    ``±j crossing_frequency`` is a diamond, and the right half plane is shaded.
-    The view is chosen around the crossings and the slow poles; poles and
-    zeros far outside it are listed at the edge of the plot.
+    Every kept variant's branches are thin translucent blue lines; the
+    nominal's are bold black and the worst variant's (smallest critical gain,
+    or furthest right at the reference gain) bold vermillion, recomputed from
+    the stored config when the sweep did not keep them. Open-loop poles (x)
+    and zeros (o) of the kept variants are marked, the nominal's and the
+    worst's larger; the poles and zeros of all other variants form a faint
+    grey cloud. Every variant's crossing of the imaginary axis (every
+    boundary frequency) is a short orange tick on the axis, the nominal's and
+    the worst's crossing at the critical gain a diamond. With an operating
+    gain, the closed-loop poles of the nominal and the worst there are filled
+    squares. The right half plane is shaded and labelled. The view is chosen
+    around the crossings and the slow poles; poles and zeros far outside it
+    are listed in a note.
 
     Parameters
     ----------
@@ -151,114 +280,132 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
     re = np.asarray(ds["locus_real"].values, float)  # (LV, G, B)
     im = np.asarray(ds["locus_imag"].values, float)
     lv = np.asarray(ds["locus_variant"].values, int)
+    gains = np.asarray(ds["gain"].values, float)
     variants = np.asarray(ds["variant"].values, int)
+    row_of = {int(v): i for i, v in enumerate(variants)}
     nom = _nominal_index(ds)
-    nom_variant = None if nom is None else int(variants[nom])
+    summary = query.summarize(ds)
+    worst = None if summary["worst"] is None else row_of.get(int(summary["worst"]["variant"]))
+    if worst == nom:
+        worst = None  # one loop: drawn as the nominal
+    k0 = query.operating_gain(ds)
 
     def pts(prefix: str) -> np.ndarray:
         if f"{prefix}_real" not in ds:
-            return np.zeros((0,), complex)
-        r = np.asarray(ds[f"{prefix}_real"].values, float)
-        i = np.asarray(ds[f"{prefix}_imag"].values, float)
-        return r + 1j * i
+            return np.zeros((variants.size, 0), complex)
+        return (np.asarray(ds[f"{prefix}_real"].values, float)
+                + 1j * np.asarray(ds[f"{prefix}_imag"].values, float))
 
     poles, zeros = pts("open_loop_pole"), pts("open_loop_zero")
+    kept_rows = np.array([row_of[int(v)] for v in lv if int(v) in row_of], int)
     # every crossing of the imaginary axis: all boundary frequencies when stored (this also
     # covers variants unstable at the reference gain, whose crossing_frequency is NaN)
     if "boundary_frequency" in ds:
-        wc = np.asarray(ds["boundary_frequency"].values, float).ravel()
-        crossing_what = "imaginary-axis crossings"
-    elif "crossing_frequency" in ds:
-        wc = np.asarray(ds["crossing_frequency"].values, float)
-        crossing_what = "axis crossings at the critical gain"
+        bf = np.asarray(ds["boundary_frequency"].values, float)
+        wc = bf.ravel()
+        n_crossing_variants = int(np.sum(np.any(np.isfinite(bf) & (bf >= 0), axis=1)))
     else:
-        wc, crossing_what = np.array([]), ""
+        wc = np.asarray(ds["crossing_frequency"].values, float)
+        n_crossing_variants = int(np.sum(np.isfinite(wc) & (wc >= 0)))
     wc_f = wc[np.isfinite(wc) & (wc > 0)]
     origin_crossings = int(np.sum(wc == 0))
-    n_crossing_variants = int(np.sum(np.any(np.isfinite(np.asarray(
-        ds["boundary_frequency"].values, float)) & (np.asarray(ds["boundary_frequency"].values,
-                                                                float) > 0), axis=1))) \
-        if "boundary_frequency" in ds else int(wc_f.size)
+    wcrit_all = np.asarray(ds["crossing_frequency"].values, float)
+    wcrit = wcrit_all[np.isfinite(wcrit_all) & (wcrit_all > 0)]
+    bp = np.asarray(ds["breakaway_point"].values, float) if "breakaway_point" in ds else np.zeros(0)
+    bp = bp[np.isfinite(bp)]
 
-    # --- the view: around the crossings and the slow open-loop poles/zeros
-    pz = np.concatenate([poles.ravel(), zeros.ravel()]) if poles.size or zeros.size else np.zeros(0, complex)
+    pz = np.concatenate([poles.ravel(), zeros.ravel()])
     pz = pz[np.isfinite(pz)]
-    mags = np.abs(pz)
-    nonzero = mags[mags > 0]
-    scale_candidates = []
-    if wc_f.size:
-        scale_candidates.append(float(wc_f.max()))
-    if nonzero.size:
-        scale_candidates.append(float(np.median(nonzero)))
-    if "breakaway_point" in ds:
-        bp = np.asarray(ds["breakaway_point"].values, float)
-        bp = bp[np.isfinite(bp)]
-    else:
-        bp = np.zeros(0)
-    if bp.size:
-        scale_candidates.append(float(np.abs(bp).max()))
-    # the crossings set the scale when there are any: they are where stability is lost
-    # the crossings at the critical gains set the scale when there are any (that is where
-    # stability is lost); the 90th percentile, so a few far crossings do not shrink the rest
-    wcrit = (np.asarray(ds["crossing_frequency"].values, float) if "crossing_frequency" in ds
-             else np.array([]))
-    wcrit = wcrit[np.isfinite(wcrit) & (wcrit > 0)]
-    if wcrit.size:
-        scale = float(np.percentile(wcrit, 90))
-    elif wc_f.size:
-        scale = float(np.percentile(wc_f, 90))
-    else:
-        scale = max(scale_candidates) if scale_candidates else 1.0
-    if not scale_candidates or scale <= 0:
-        finite = np.abs(re[np.isfinite(re)])
-        scale = float(np.median(finite)) if finite.size else 1.0
-    reach = 4.0 * scale  # open-loop points beyond this are "outside the view"
-    inside = pz[np.abs(pz) <= reach]
-    xs = [0.0] + list(inside.real) + list(bp[np.abs(bp) <= reach])
-    ys = [0.0] + list(np.abs(inside.imag)) + list(wc_f[wc_f <= 1.5 * scale])
-    y_half = 1.25 * max(max(ys), 0.25 * scale, 1e-12)
-    x_lo = min(xs) - 0.15 * (max(xs) - min(xs) + y_half)
-    x_hi = max(max(xs), 0.0) + 0.35 * y_half
-    # at least a square-ish window so the branches leaving for the asymptotes can be seen
-    if x_hi - x_lo < y_half:
-        x_lo = min(x_lo, -0.75 * y_half)
-        x_hi = max(x_hi, 0.35 * y_half)
+    cl = pts("closed_loop_pole") if k0 is not None else np.zeros((variants.size, 0), complex)
+    must = np.concatenate([cl[i] for i in (nom, worst) if i is not None] + [np.zeros(0, complex)])
+    x_lo, x_hi, y_half = _locus_view(pz, wc_f, wcrit, bp, re, must)
+
+    # the bold loci: stored, else recomputed from the config on the same gain grid
+    bold: dict[int, np.ndarray] = {}
+    for i in (nom, worst):
+        if i is not None and variants[i] in lv:
+            j = int(np.flatnonzero(lv == variants[i])[0])
+            bold[i] = re[j] + 1j * im[j]
+    missing = [i for i in (nom, worst) if i is not None and i not in bold]
+    recomputed = _recomputed_loci(ds, missing, gains[gains > 0]) if missing else {}
+    for i, r in recomputed.items():
+        full = np.full((gains.size, r.shape[1]), np.nan + 0j)
+        full[gains > 0] = r
+        bold[i] = full
+    not_shown = [i for i in missing if i not in recomputed]
+
+    # the thin spread: every kept variant but the bold ones, thinned evenly when there are many
+    thin = np.array([j for j, v in enumerate(lv) if row_of.get(int(v)) not in (nom, worst)], int)
+    n_thin = thin.size
+    if n_thin > MAX_LOCUS_LINES:
+        thin = thin[np.linspace(0, n_thin - 1, MAX_LOCUS_LINES).round().astype(int)]
 
     with plt.rc_context(_STYLE):
-        fig, ax = plt.subplots(figsize=(9.0, 5.6), dpi=dpi or 100)
-        fig.subplots_adjust(left=0.08, right=0.64, top=0.86, bottom=0.1)
-        ax.axvspan(0, 1e300, color=VERMILLION, alpha=0.07, lw=0, zorder=0)
+        fig, ax = plt.subplots(figsize=(9.4, 5.8), dpi=dpi or 100)
+        fig.subplots_adjust(left=0.085, right=0.615, top=0.86, bottom=0.1)
+        ax.axvspan(0, 1e300, color=VERMILLION, alpha=0.10, lw=0, zorder=0)
         ax.axhline(0, color="#8c8c8c", lw=0.8, zorder=1)
-        ax.axvline(0, color="#8c8c8c", lw=0.8, zorder=1)
+        ax.axvline(0, color="#595959", lw=1.0, zorder=1)
+        many = variants.size > 2000
 
-        others = lv != nom_variant
-        n_lines = int(others.sum())
-        alpha = float(np.clip(6.0 / max(n_lines, 1), 0.06, 0.5))
-        segs = []
-        for b in range(re.shape[2]):
-            for j in np.flatnonzero(others):
-                segs.append(np.column_stack([re[j, :, b], im[j, :, b]]))
+        # all variants' open-loop poles and zeros, as a faint cloud under everything
+        others = np.setdiff1d(np.arange(variants.size), kept_rows)
+        if others.size:
+            cp, cz = poles[others].ravel(), zeros[others].ravel()
+            cp, cz = cp[np.isfinite(cp)], cz[np.isfinite(cz)]
+            a = float(np.clip(30.0 / max(others.size, 1), 0.04, 0.5))
+            ax.scatter(cp.real, cp.imag, s=4, marker="x", lw=0.5, color=GREY, alpha=a, zorder=1.5,
+                       rasterized=many)
+            if cz.size:
+                ax.scatter(cz.real, cz.imag, s=4, marker="o", facecolor="none", lw=0.5, color=GREY,
+                           alpha=a, zorder=1.5, rasterized=many)
+
+        alpha = float(np.clip(8.0 / max(thin.size, 1), 0.05, 0.6))
+        segs = [np.column_stack([re[j, :, b], im[j, :, b]]) for j in thin for b in range(re.shape[2])]
         if segs:
-            ax.add_collection(LineCollection(segs, colors=BLUE, linewidths=0.7, alpha=alpha, zorder=2))
-        has_nom_locus = nom_variant is not None and np.any(lv == nom_variant)
-        if has_nom_locus:
-            j = int(np.flatnonzero(lv == nom_variant)[0])
-            for b in range(re.shape[2]):
-                ax.plot(re[j, :, b], im[j, :, b], color=BLACK, lw=2.0, zorder=4)
+            ax.add_collection(LineCollection(segs, colors=BLUE, linewidths=0.7, alpha=alpha, zorder=2,
+                                             rasterized=len(segs) > 600))
+        if kept_rows.size:
+            kp, kz = poles[kept_rows].ravel(), zeros[kept_rows].ravel()
+            a = float(np.clip(40.0 / kept_rows.size, 0.05, 1.0))  # many kept: a cloud, not a blot
+            ax.plot(kp.real, kp.imag, "x", color="#595959", ms=4, mew=0.8, alpha=a, zorder=3,
+                    rasterized=kp.size > 3000)
+            ax.plot(kz.real, kz.imag, "o", mfc="none", mec="#595959", ms=4, mew=0.8, alpha=a, zorder=3,
+                    rasterized=kz.size > 3000)
 
-        if poles.size:
-            ax.plot(poles.real.ravel(), poles.imag.ravel(), "x", color=GREY, ms=4, mew=0.8, zorder=5)
-        if zeros.size:
-            ax.plot(zeros.real.ravel(), zeros.imag.ravel(), "o", mfc="none", mec=GREY, ms=4,
-                    mew=0.8, zorder=5)
-        if nom is not None and poles.size:
-            ax.plot(poles[nom].real, poles[nom].imag, "x", color=BLACK, ms=9, mew=2, zorder=6)
-        if nom is not None and zeros.size:
-            ax.plot(zeros[nom].real, zeros[nom].imag, "o", mfc="white", mec=BLACK, ms=8, mew=2,
-                    zorder=6)
+        for i, colour, lw, z in ((worst, VERMILLION, 1.8, 4), (nom, BLACK, 2.0, 5)):
+            if i is None:
+                continue
+            if i in bold:
+                r = bold[i]
+                for b in range(r.shape[1]):
+                    ax.plot(r[:, b].real, r[:, b].imag, color=colour, lw=lw, zorder=z,
+                            solid_capstyle="round")
+            ms = 9 if colour == BLACK else 8
+            ax.plot(poles[i].real, poles[i].imag, "x", color=colour, ms=ms, mew=2, zorder=z + 2)
+            if zeros.shape[1]:
+                ax.plot(zeros[i].real, zeros[i].imag, "o", mfc="white", mec=colour, ms=ms - 1, mew=2,
+                        zorder=z + 2)
+
+        # axis crossings: a short tick per crossing, translucent so their density shows
         if wc_f.size:
-            ax.plot(np.zeros(2 * wc_f.size), np.concatenate([wc_f, -wc_f]), "D", ms=4,
-                    mfc=VERMILLION, mec="white", mew=0.4, zorder=7)
+            a = float(np.clip(30.0 / wc_f.size, 0.03, 1.0))
+            ax.scatter(np.zeros(2 * wc_f.size), np.concatenate([wc_f, -wc_f]), marker="_", s=60,
+                       lw=1.4, color=ORANGE, alpha=a, zorder=7, rasterized=wc_f.size > 3000)
+        if origin_crossings:  # a real root through s = 0
+            ax.plot([0], [0], "|", ms=14, mew=2.0, color=ORANGE, zorder=7)
+        # nominal first, the worst on top and a little smaller, so both stay visible when close
+        drew_diamond = drew_cl = False
+        for i, colour, ms, z in ((nom, BLACK, 8, 9), (worst, VERMILLION, 6.5, 10)):
+            if i is not None and np.isfinite(wcrit_all[i]) and wcrit_all[i] > 0:
+                w = wcrit_all[i]
+                ax.plot([0, 0], [w, -w], "D", ms=ms, mfc=colour, mec="white", mew=0.8, zorder=z)
+                drew_diamond = True
+        for i, colour, ms, z in ((nom, BLACK, 7.5, 11), (worst, VERMILLION, 5.5, 12)):
+            if i is not None and cl.shape[1] and np.isfinite(cl[i]).any():
+                ax.plot(cl[i].real, cl[i].imag, "s", ms=ms, mfc=colour, mec="white", mew=0.8,
+                        zorder=z)
+                drew_cl = True
 
         # equal scales on both axes by widening the shorter side to the box's shape,
         # unless that would squash the view by more than 3x (then scales differ)
@@ -271,64 +418,106 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
             x_hi += 0.25 * (want - have)
         elif have > want and have / want <= 3:
             y_half = have / (2 * box)
+        # a pole or zero just at or beyond an edge is pulled inside rather than cut in half
+        span = x_hi - x_lo
+        near = pz[(pz.real > x_lo - 0.12 * span) & (pz.real < x_lo + 0.03 * span)
+                  & (np.abs(pz.imag) <= y_half)]
+        if near.size:
+            x_lo = float(near.real.min()) - 0.05 * span
+        near = pz[(pz.real < x_hi + 0.12 * span) & (pz.real > x_hi - 0.03 * span)
+                  & (np.abs(pz.imag) <= y_half)]
+        if near.size:
+            x_hi = float(near.real.max()) + 0.05 * span
+        near = np.abs(pz.imag[(pz.real >= x_lo) & (pz.real <= x_hi)])
+        near = near[(near > 0.97 * y_half) & (near < 1.12 * y_half)]
+        if near.size:
+            y_half = float(near.max()) + 0.05 * y_half
         ax.set_xlim(x_lo, x_hi)
         ax.set_ylim(-y_half, y_half)
+
         # open-loop points outside the view: say where they are
-        far = pz[(pz.real < x_lo) | (pz.real > x_hi) | (np.abs(pz.imag) > y_half)]
         notes = []
-        if far.size:
-            fp = far[np.isin(far, poles.ravel())]
-            fz = far[np.isin(far, zeros.ravel())]
-            for label, arr in (("poles", fp), ("zeros", fz)):
-                if arr.size:
-                    lo_, hi_ = arr.real.min(), arr.real.max()
-                    span = f"{_fmt(lo_)}" if np.isclose(lo_, hi_, rtol=0.05) else f"{_fmt(lo_)} .. {_fmt(hi_)}"
-                    notes.append(f"{label} outside the view: real part {span}")
+        inside = lambda z: (z.real >= x_lo) & (z.real <= x_hi) & (np.abs(z.imag) <= y_half)  # noqa: E731
+        for label, arr in (("poles", poles.ravel()), ("zeros", zeros.ravel())):
+            arr = arr[np.isfinite(arr)]
+            far = arr[~inside(arr)]
+            if far.size:
+                lo_, hi_ = far.real.min(), far.real.max()
+                span = _fmt(lo_) if np.isclose(lo_, hi_, rtol=0.05) else f"{_fmt(lo_)} .. {_fmt(hi_)}"
+                notes.append(f"open-loop {label} outside the view: real part {span}")
         n_high = int(np.sum(wc_f > y_half))
         if n_high:
-            notes.append(f"{n_high} axis crossing(s) beyond the view (|w| up to {_fmt(float(wc_f.max()))} rad/s)")
+            notes.append(f"{n_high} axis crossing(s) beyond the view (|w| up to "
+                         f"{_fmt(float(wc_f.max()))} rad/s)")
         if origin_crossings:
-            notes.append(f"{origin_crossings} variant(s) lose stability through s = 0")
+            notes.append(f"{origin_crossings} crossing(s) through s = 0 (a real root)")
+        if n_thin > thin.size:
+            notes.append(f"thin lines: {thin.size} of {n_thin} stored loci, evenly chosen")
+        for i, who in ((nom, "nominal"), (worst, "worst case")):
+            if i is not None and i in recomputed:
+                notes.append(f"{who} locus recomputed from the stored config (not kept by the sweep)")
+        for i in not_shown:
+            notes.append(f"{'nominal' if i == nom else 'worst case'} locus not stored")
 
         if max(abs(x_lo), abs(x_hi), y_half) >= 1e4:  # 400k reads better than 4e5 with an offset
             from matplotlib.ticker import EngFormatter
 
             ax.xaxis.set_major_formatter(EngFormatter(sep=""))
             ax.yaxis.set_major_formatter(EngFormatter(sep=""))
-        ax.set_xlabel("real part [1/s]")
-        ax.set_ylabel("imaginary part [rad/s]")
+        ax.set_xlabel(f"real part [{_units(ds, 'locus_real') or '1/s'}]")
+        ax.set_ylabel(f"imaginary part [{_units(ds, 'locus_imag') or 'rad/s'}]")
         if notes:
             ax.text(0.01, 0.02, "\n".join(notes), transform=ax.transAxes, ha="left", va="bottom",
-                    fontsize=7.5, color="#404040",
-                    bbox=dict(boxstyle="round,pad=0.3", fc="white", ec="#bfbfbf", alpha=0.9))
+                    fontsize=7.5, color="#404040", zorder=20,
+                    bbox=dict(boxstyle="round,pad=0.3", fc="white", ec="#bfbfbf", alpha=0.92))
 
-        handles = [
-            Line2D([], [], color=BLUE, lw=1.2, alpha=0.6, label=f"branches of {n_lines} variants"),
-            Line2D([], [], marker="x", ls="none", color=GREY, label="open-loop poles (each variant)"),
-            Line2D([], [], marker="D", ls="none", mfc=VERMILLION, mec="white",
-                   label=f"{crossing_what} ({n_crossing_variants} variants)"),
-            Patch(fc=VERMILLION, alpha=0.15, label="right half plane (unstable)"),
-        ]
-        has_zeros = bool(np.isfinite(zeros).any()) if zeros.size else False
-        if has_zeros:
-            handles.insert(2, Line2D([], [], marker="o", ls="none", mfc="none", mec=GREY,
-                                     label="open-loop zeros (each variant)"))
-        if has_nom_locus:
-            handles.insert(1, Line2D([], [], color=BLACK, lw=2.0, label="nominal branches"))
-        if nom is not None and poles.size:
-            handles.insert(3, Line2D([], [], marker="x", ls="none", color=BLACK, ms=8, mew=2,
-                                     label="nominal open-loop poles"))
-        if nom is not None and has_zeros:
-            handles.insert(len(handles) - 2, Line2D([], [], marker="o", ls="none", mfc="white", mec=BLACK, ms=7,
-                                     mew=2, label="nominal open-loop zeros"))
+        handles = []
+        if nom is not None:
+            handles.append(Line2D([], [], color=BLACK, lw=2.0, marker="x", mew=2, ms=8,
+                                  label=f"nominal (variant {int(variants[nom])})"))
+        if worst is not None:
+            wlabel = f"worst case (variant {int(variants[worst])}"
+            wk = summary["worst"]["critical_gain"]
+            if wk is not None and math.isfinite(wk):
+                wlabel += f", critical gain {_fmt(wk)})"
+            elif summary["unstable_at_reference"]:
+                wlabel += ", unstable at the reference gain)"
+            else:
+                wlabel += ")"
+            handles.append(Line2D([], [], color=VERMILLION, lw=1.8, marker="x", mew=2, ms=7, label=wlabel))
+        if thin.size:
+            handles.append(Line2D([], [], color=BLUE, lw=1.2, alpha=0.6,
+                                  label=f"branches of {n_thin} other stored variants"))
+        if kept_rows.size:
+            handles.append(Line2D([], [], marker="x", ls="none", color="#595959", ms=5,
+                                  label="their open-loop poles (x)" + (" and zeros (o)" if zeros.shape[1] else "")))
+        if others.size:
+            handles.append(Line2D([], [], marker="x", ls="none", color=GREY, alpha=0.6, ms=4,
+                                  label=f"poles/zeros of the other {others.size} variants"))
+        if wc_f.size or origin_crossings:
+            handles.append(Line2D([], [], marker="_", ls="none", color=ORANGE, ms=12, mew=1.6,
+                                  label=f"imaginary-axis crossings ({n_crossing_variants} variants"
+                                        + (", | at s = 0)" if origin_crossings else ")")))
+        if drew_diamond:
+            handles.append(Line2D([], [], marker="D", ls="none", mfc=GREY, mec="white", ms=7,
+                                  label="crossing at the critical gain (nominal, worst)"))
+        if drew_cl:
+            handles.append(Line2D([], [], marker="s", ls="none", mfc=GREY, mec="white", ms=7,
+                                  label=f"closed-loop poles at the operating gain {_fmt(k0)}"))
+        handles.append(Patch(fc=VERMILLION, alpha=0.2, label="right half plane: unstable"))
         ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), frameon=False,
-                  borderaxespad=0.0)
-        _title(fig, ds, f"Root-locus spread: {re.shape[0]} stored loci, gain "
-                        f"{_fmt(float(ds['gain'].values.min()))} to {_fmt(float(ds['gain'].values.max()))}")
+                  borderaxespad=0.0, handlelength=2.2)
+        g = gains[gains > 0]
+        _title(fig, ds, f"Root-locus spread: {lv.size} stored loci of {variants.size} variants, "
+                        f"gain {_fmt(float(g.min()))} to {_fmt(float(g.max()))} "
+                        f"({ds.attrs.get('feedback', 'negative')} feedback)")
     return fig
 
 
 # ------------------------------------------------------------------ limits
+
+MAX_POINTS_PER_DESIGN = 20000  # scatter panels thin larger designs evenly (the note says so)
+
 
 def _crit_for_plot(ds: xr.Dataset):
     crit = np.asarray(ds["critical_gain"].values, float)
@@ -339,13 +528,22 @@ def _crit_for_plot(ds: xr.Dataset):
     return crit, unstable
 
 
+def _panel_grid(n: int) -> tuple[int, int]:
+    """Rows and columns of small multiples: 2x2 for four, at most three across."""
+    cols = 2 if n == 4 else min(n, 3)
+    return math.ceil(n / cols), cols
+
+
 def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
     """Critical gain against each uncertain parameter, one small panel per parameter.
 
-    Points are coloured by design; the worst case (ring) and the nominal
-    (diamond) are marked; infinite critical gains are drawn as triangles on
-    the top edge and variants unstable at the reference gain as crosses on
-    the bottom edge.
+    Points are coloured by design (sampled designs translucent, corners and
+    grid points on top); the worst case (ring) and the nominal (diamond) are
+    marked; the reference gain is a dashed line, always inside the view;
+    infinite critical gains are triangles on the top edge and variants
+    unstable at the reference gain crosses on the bottom edge, both counted
+    in the legend. Designs with more than ``MAX_POINTS_PER_DESIGN`` variants
+    are thinned evenly for drawing.
 
     Parameters
     ----------
@@ -368,60 +566,86 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
                          field="parameters")
     crit, unstable = _crit_for_plot(ds)
     design = _design(ds)
+    variants = np.asarray(ds["variant"].values)
     summary = query.summarize(ds)
     worst = summary["worst"]["variant"] if summary["worst"] else None
-    wi = int(np.flatnonzero(np.asarray(ds["variant"].values) == worst)[0]) if worst is not None else None
+    wi = int(np.flatnonzero(variants == worst)[0]) if worst is not None else None
     nom = _nominal_index(ds)
+    k_ref = summary["reference_gain"]
     finite = crit[np.isfinite(crit)]
-    use_log = finite.size > 1 and finite.min() > 0 and finite.max() / finite.min() > 20
     if finite.size:
-        lo, hi = finite.min(), finite.max()
-    else:
-        lo, hi = 1.0, 10.0
+        lo, hi = float(finite.min()), float(finite.max())
+    else:  # nothing finite to draw: centre the (otherwise empty) scale on the reference gain
+        lo, hi = (0.5 * k_ref, 2.0 * k_ref) if k_ref > 0 else (0.0, 1.0)
+    use_log = finite.size > 1 and lo > 0 and hi / lo > 20
+    # the reference gain belongs in the view (the margin is the distance to it), unless on a
+    # log scale it lies decades below the data
+    ref_in_view = k_ref > 0 and (not use_log or k_ref >= lo / 100)
+    if ref_in_view:
+        lo, hi = min(lo, k_ref), max(hi, k_ref)
     if use_log:
         y_bot, y_top = lo / 1.6, hi * 1.6
     else:
-        pad = 0.12 * (hi - lo) if hi > lo else 0.5 * abs(hi) + 1
-        y_bot, y_top = lo - pad, hi + pad
+        if ref_in_view and lo > 0:
+            lo = 0.0  # a linear axis from 0 shows the margin to the reference gain in proportion
+        pad = 0.1 * (hi - lo) if hi > lo else 0.5 * abs(hi) + 1
+        y_bot, y_top = (lo - 0.5 * pad if lo == 0 else lo - pad), hi + pad
+    # infinite critical gains sit in a band just above each panel, labelled "inf" (never a number)
+    y_inf = y_top * (y_top / y_bot) ** 0.05 if use_log else y_top + 0.05 * (y_top - y_bot)
     n = len(names)
-    cols = min(n, 3)
-    rows = math.ceil(n / cols)
+    rows, cols = _panel_grid(n)
+    present = [d for d in DESIGN_COLOURS if d in set(design)] + sorted(set(design) - set(DESIGN_COLOURS))
+    # big sets first so the small ones (corners, grid) stay visible on top
+    order = sorted((d for d in present if d != "nominal"), key=lambda d: -int((design == d).sum()))
+    shown = np.ones(design.size, bool)
+    thinned = []
+    for d in order:
+        idx = np.flatnonzero(design == d)
+        if idx.size > MAX_POINTS_PER_DESIGN:
+            keep = idx[np.linspace(0, idx.size - 1, MAX_POINTS_PER_DESIGN).round().astype(int)]
+            shown[np.setdiff1d(idx, keep)] = False
+            thinned.append(f"{d}: {MAX_POINTS_PER_DESIGN} of {idx.size} drawn")
     with plt.rc_context(_STYLE):
-        fig, axes = plt.subplots(rows, cols, figsize=(3.2 * cols + 0.6, 2.9 * rows + 1.3),
-                                 dpi=dpi or 100, sharey=True, squeeze=False)
-        height = 2.9 * rows + 1.3
-        fig.subplots_adjust(left=0.09, right=0.98, top=1 - 0.75 / height, bottom=1.15 / height,
-                            wspace=0.08, hspace=0.55)
-        present = [d for d in DESIGN_COLOURS if d in set(design)] + \
-                  sorted(set(design) - set(DESIGN_COLOURS))
-        # big sets first so the small ones (corners) stay visible on top
-        order = sorted(present, key=lambda d: -int((design == d).sum()))
-        k_ref = summary["reference_gain"]
+        width = 3.3 * cols + 0.8
+        height = 2.9 * rows + 1.5
+        fig, axes = plt.subplots(rows, cols, figsize=(width, height), dpi=dpi or 100, sharey=True,
+                                 squeeze=False)
+        fig.subplots_adjust(left=0.8 / width, right=1 - 0.15 / width, top=1 - 1.0 / height,
+                            bottom=1.35 / height, wspace=0.08, hspace=0.5)
         for k, name in enumerate(names):
             ax = axes[k // cols][k % cols]
             x, xlabel = _scaled(ds, name)
             for d in order:
-                m = design == d
+                m = (design == d) & shown
                 c = DESIGN_COLOURS.get(d, GREY)
+                count = int(m.sum())
+                sampled = d in query.SAMPLED_DESIGNS
+                alpha = float(np.clip(400.0 / max(count, 1), 0.15, 0.8)) if sampled else 0.9
                 f = m & np.isfinite(crit)
-                ax.scatter(x[f], crit[f], s=12 if d not in ("nominal",) else 0, color=c, alpha=0.75,
-                           lw=0, zorder=3)
+                ax.scatter(x[f], crit[f], s=10 if sampled else 16, color=c, alpha=alpha, lw=0,
+                           zorder=3 if sampled else 4, rasterized=count > 5000)
                 inf_m = m & np.isposinf(crit)
-                ax.scatter(x[inf_m], np.full(inf_m.sum(), y_top), marker="^", s=22, color=c,
-                           clip_on=False, zorder=3)
+                ax.scatter(x[inf_m], np.full(inf_m.sum(), y_inf), marker="^", s=22, color=c,
+                           alpha=max(alpha, 0.5), lw=0, clip_on=False, zorder=4)
                 u = m & unstable
                 ax.scatter(x[u], np.full(u.sum(), y_bot), marker="x", s=20, color=c, lw=1,
-                           clip_on=False, zorder=3)
-            if nom is not None and np.isfinite(crit[nom]):
-                ax.scatter([x[nom]], [crit[nom]], marker="D", s=46, color=BLACK, zorder=5)
+                           alpha=max(alpha, 0.5), clip_on=False, zorder=4)
+            if ref_in_view:
+                ax.axhline(k_ref, color=REFERENCE, lw=1.2, ls="--", zorder=2)
+            if nom is not None:
+                yn = crit[nom] if np.isfinite(crit[nom]) else (y_bot if unstable[nom] else y_inf)
+                ax.scatter([x[nom]], [yn], marker="D", s=46, color=BLACK, edgecolor="white", lw=0.6,
+                           zorder=5, clip_on=False)
             if wi is not None:
-                yw = crit[wi] if np.isfinite(crit[wi]) else (y_bot if unstable[wi] else y_top)
+                yw = crit[wi] if np.isfinite(crit[wi]) else (y_bot if unstable[wi] else y_inf)
                 ax.scatter([x[wi]], [yw], s=150, facecolor="none", edgecolor=VERMILLION, lw=2,
                            zorder=6, clip_on=False)
-            if k_ref > 0 and y_bot < k_ref < y_top:
-                ax.axhline(k_ref, color=REFERENCE, lw=1.2, ls="--", zorder=2)
+            if np.isposinf(crit).any() and k % cols == 0:
+                ax.text(-0.02, y_inf, "inf", transform=ax.get_yaxis_transform(), ha="right",
+                        va="center", fontsize=8, color="#404040")
             ax.set_xlabel(xlabel)
-            ax.set_yscale("log" if use_log else "linear")
+            if use_log:
+                _log_axis(ax.yaxis, y_bot, y_top)
             ax.set_ylim(y_bot, y_top)
             if k % cols == 0:
                 ax.set_ylabel("critical gain")
@@ -429,22 +653,39 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
             axes[k // cols][k % cols].set_visible(False)
         handles = [Line2D([], [], marker="o", ls="none", color=DESIGN_COLOURS.get(d, GREY), ms=5,
                           label=f"{d} ({int((design == d).sum())})") for d in present if d != "nominal"]
-        handles.append(Line2D([], [], marker="D", ls="none", color=BLACK, ms=6, label="nominal"))
-        handles.append(Line2D([], [], marker="o", ls="none", mfc="none", mec=VERMILLION, mew=2, ms=11,
-                              label="worst case"))
-        if k_ref > 0 and y_bot < k_ref < y_top:
+        if nom is not None:
+            handles.append(Line2D([], [], marker="D", ls="none", color=BLACK, ms=6, label="nominal"))
+        if wi is not None:
+            wk = summary["worst"]["critical_gain"]
+            wl = (f"worst case, variant {worst} ({_fmt(wk)})" if wk is not None and math.isfinite(wk)
+                  else f"worst case, variant {worst} (unstable at the reference gain)")
+            handles.append(Line2D([], [], marker="o", ls="none", mfc="none", mec=VERMILLION, mew=2,
+                                  ms=11, label=wl))
+        if ref_in_view:
             handles.append(Line2D([], [], color=REFERENCE, ls="--", label=f"reference gain {_fmt(k_ref)}"))
+        elif k_ref > 0:
+            handles.append(Line2D([], [], ls="none", label=f"reference gain {_fmt(k_ref)} (far below the view)"))
         if np.isposinf(crit).any():
             handles.append(Line2D([], [], marker="^", ls="none", color=GREY,
-                                  label=f"inf, drawn at top ({int(np.isposinf(crit).sum())})"))
+                                  label=f"inf: never unstable in the range, drawn above "
+                                        f"({int(np.isposinf(crit).sum())})"))
         if unstable.any():
             handles.append(Line2D([], [], marker="x", ls="none", color=GREY,
-                                  label=f"unstable at reference gain ({int(unstable.sum())})"))
-        fig.legend(handles=handles, loc="lower center", ncol=min(len(handles), 4), frameon=False,
-                   bbox_to_anchor=(0.5, 0.0))
-        _title(fig, ds, ("Critical gain against each uncertain parameter" if query.uncertain_names(ds)
-                         else "Critical gain against each parameter (none varies)")
-               + (" (log scale)" if use_log else ""))
+                                  label=f"unstable at the reference gain, drawn at the bottom "
+                                        f"({int(unstable.sum())})"))
+        fig.legend(handles=handles, loc="lower center", ncol=min(len(handles), 3 if cols < 3 else 4),
+                   frameon=False, bbox_to_anchor=(0.5, 0.0))
+        sub = ("Critical gain against each uncertain parameter" if query.uncertain_names(ds)
+               else "Critical gain against each parameter (none varies)")
+        sub += " (log scale)" if use_log else ""
+        if not finite.size:
+            sub += ("; no finite critical gain: every variant is unstable at the reference gain "
+                    "or never loses stability")
+        if summary["not_computed"]:
+            sub += f"; {summary['not_computed']} variants without a computed critical gain not drawn"
+        if thinned:
+            sub += "; " + ", ".join(thinned)
+        _title(fig, ds, sub)
     return fig
 
 
@@ -482,8 +723,8 @@ def envelope_figure(ds: xr.Dataset, *, dpi: float | None = None):
     k0 = query.operating_gain(ds)
     rgi = summary["robust_gain_interval"]
     with plt.rc_context(_STYLE):
-        fig, ax = plt.subplots(figsize=(7.2, 4.6), dpi=dpi or 100)
-        fig.subplots_adjust(left=0.13, right=0.97, top=0.84, bottom=0.13)
+        fig, ax = plt.subplots(figsize=(7.6, 5.2), dpi=dpi or 100)
+        fig.subplots_adjust(left=0.13, right=0.97, top=0.86, bottom=0.27)
         handles = []
         if rgi is not None:
             lo = max(rgi[0], g.min()) if g.size else rgi[0]
@@ -504,9 +745,18 @@ def envelope_figure(ds: xr.Dataset, *, dpi: float | None = None):
         if k0 is not None:
             ax.axvline(k0, color=ORANGE, lw=1.6, zorder=5)
             handles.append(Line2D([], [], color=ORANGE, lw=1.6, label=f"operating gain {_fmt(k0)}"))
-        ax.set_xscale("log")
+        w = summary["worst"]
+        if w is not None and w["critical_gain"] is not None and math.isfinite(w["critical_gain"]) \
+                and g.size and g.min() <= w["critical_gain"] <= g.max():
+            ax.plot([w["critical_gain"]], [0.0], "D", ms=7, mfc=VERMILLION, mec="white", zorder=6)
+            handles.append(Line2D([], [], marker="D", ls="none", mfc=VERMILLION, mec="white", ms=7,
+                                  label=f"worst critical gain {_fmt(w['critical_gain'])} "
+                                        f"(variant {w['variant']})"))
         if g.size:
+            _log_axis(ax.xaxis, float(g.min()), float(g.max()))
             ax.set_xlim(g.min(), g.max())
+        else:
+            ax.set_xscale("log")
         lo_y = float(np.nanmin(amin)) if amin.size else -1.0
         hi_y = float(np.nanmax(amax)) if amax.size else 1.0
         # the abscissa often spans decades on one side of zero while the crossing happens
@@ -533,15 +783,16 @@ def envelope_figure(ds: xr.Dataset, *, dpi: float | None = None):
             eng = EngFormatter(sep="")
             ax.set_yticks(sorted(ticks))
             ax.set_yticklabels([eng(t) if abs(t) >= 1e4 else f"{t:g}" for t in sorted(ticks)])
-            ax.text(1.0, -0.1, f"y: symmetric log scale, linear within ±{linthresh:.2g}",
+            ax.text(1.0, -0.09, f"y: symmetric log scale, linear within ±{linthresh:.2g}",
                     transform=ax.transAxes, ha="right", va="top", fontsize=7, color="#595959")
         else:
             span = hi_y - lo_y if hi_y > lo_y else 1.0
             ax.set_ylim(lo_y - 0.05 * span, hi_y + 0.05 * span)
         ax.set_xlabel(_label(ds, "gain", "loop gain k"))
         ax.set_ylabel(ylabel)
-        ax.legend(handles=handles, loc="upper left", framealpha=0.92)
-        _title(fig, ds, f"Stability envelope over {summary['n_variants']} variants "
+        fig.legend(handles=handles, loc="lower center", ncol=2, frameon=False,
+                   bbox_to_anchor=(0.5, 0.0))
+        _title(fig, ds, f"Spectral abscissa against gain over all {summary['n_variants']} variants "
                         "(above zero: some variant unstable)")
     return fig
 
@@ -549,10 +800,16 @@ def envelope_figure(ds: xr.Dataset, *, dpi: float | None = None):
 # ------------------------------------------------------------------ crossings
 
 def crossings_figure(ds: xr.Dataset, *, dpi: float | None = None):
-    """Histograms of the critical gain and the crossing frequency.
+    """Distributions of the critical gain and of the crossing frequency.
 
-    Worst case and nominal are marked; infinite critical gains and variants
-    unstable at the reference gain are counted in a note (they have no bar).
+    Histograms of the sampled designs (random, lhs, sobol; the same variants
+    as the quantiles of ``sweep query``), or of every variant when there is no
+    sampled design; the corners and grid points as a rug of short ticks under
+    the bars; the worst case, the nominal and the reference gain as vertical
+    lines whose values are in the legend. A log axis is used when the values
+    span more than a factor of 20. Infinite critical gains, crossings through
+    the origin and variants unstable at the reference gain have no bar and
+    are counted in the note under the panels.
 
     Parameters
     ----------
@@ -568,78 +825,120 @@ def crossings_figure(ds: xr.Dataset, *, dpi: float | None = None):
     _need(ds, ("critical_gain", "crossing_frequency"), "crossings", "rerun 'sweep run'")
     plt = _plt()
     from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
 
     crit, unstable = _crit_for_plot(ds)
     freq = np.asarray(ds["crossing_frequency"].values, float)
+    design = _design(ds)
     summary = query.summarize(ds)
+    basis, qb = query.quantile_basis(ds)
+    sampled_basis = bool(set(qb["designs"]) & set(query.SAMPLED_DESIGNS))
+    rug = np.isin(design, query.LEVEL_DESIGNS) & ~basis
     w = summary["worst"]
     nom = summary["nominal"]
+    k_ref = summary["reference_gain"]
     with plt.rc_context(_STYLE):
-        fig, axes = plt.subplots(1, 2, figsize=(8.4, 4.0), dpi=dpi or 100)
-        fig.subplots_adjust(left=0.08, right=0.98, top=0.82, bottom=0.25, wspace=0.22)
-        for ax, data, label, wv, nv in (
+        fig, axes = plt.subplots(1, 2, figsize=(9.0, 4.6), dpi=dpi or 100)
+        fig.subplots_adjust(left=0.075, right=0.98, top=0.83, bottom=0.33, wspace=0.2)
+        for ax, data, label, wv, nv, ref in (
             (axes[0], crit, "critical gain", w["critical_gain"] if w else None,
-             nom["critical_gain"] if nom else None),
+             nom["critical_gain"] if nom else None, k_ref if k_ref > 0 else None),
             (axes[1], freq, _label(ds, "crossing_frequency", "crossing frequency"),
-             w["crossing_frequency"] if w else None, nom["crossing_frequency"] if nom else None),
+             w["crossing_frequency"] if w else None, nom["crossing_frequency"] if nom else None, None),
         ):
-            f = data[np.isfinite(data) & (data > 0)]
-            zero_count = int(np.sum(data == 0))
-            log = f.size > 1 and f.max() / f.min() > 20
+            ok = np.isfinite(data) & (data > 0)
+            f = data[basis & ok]
+            every = data[ok]
+            marks = [v for v in (wv, nv) if v is not None and math.isfinite(v) and v > 0]
+            if every.size or marks:
+                span = np.concatenate([every, marks])
+            else:  # nothing to count: say so in the panel
+                span = np.array([0.5 * ref, 2.0 * ref]) if ref else np.array([0.5, 2.0])
+                ax.text(0.5, 0.75, "no finite positive values\n(see the note below)",
+                        transform=ax.transAxes, ha="center", va="center", fontsize=9, color="#595959",
+                        bbox=dict(fc="white", ec="none", pad=2))
+                ax.set_yticks([])
+                if not ref:
+                    ax.set_xticks([])
+            lo, hi = float(span.min()), float(span.max())
+            log = lo > 0 and hi / lo > 20  # judged on the data, not on the reference gain
+            if ref is not None and (not log or ref >= lo / 100):
+                lo = min(lo, ref)  # the margin to the reference gain is part of the picture
+            elif ref is not None:
+                ref = None  # decades below the data: named in the legend instead
             if f.size:
-                bins = (np.geomspace(f.min(), f.max() * 1.0001, 31) if log
-                        else np.linspace(f.min(), f.max() + 1e-12 * max(1, abs(f.max())), 31))
                 if f.min() == f.max():
-                    bins = 10
+                    bins = np.array([f.min() * 0.98, f.max() * 1.02]) if f.min() else 10
+                elif log:
+                    bins = np.geomspace(f.min(), f.max() * 1.0001, 31)
+                else:
+                    bins = np.linspace(f.min(), f.max() + 1e-12 * max(1, abs(f.max())), 31)
                 ax.hist(f, bins=bins, color=SKY, edgecolor=BLUE, lw=0.5, zorder=2)
+            ax.set_ylim(bottom=0)
+            ax.margins(y=0.12)
+            for d in query.LEVEL_DESIGNS:  # structured designs: a rug of ticks at the foot
+                r = data[rug & ok & (design == d)]
+                if r.size:
+                    ax.plot(r, np.zeros(r.size), "|", ms=9, mew=1.1, color=DESIGN_COLOURS[d],
+                            transform=ax.get_xaxis_transform(), clip_on=False, zorder=3, alpha=0.8)
             if log:
-                from matplotlib.ticker import LogLocator, NullFormatter
+                _log_axis(ax.xaxis, lo, hi)
+                ax.set_xlim(lo / 1.15, hi * 1.15)
+            else:
+                pad = 0.04 * (hi - lo or abs(hi) or 1.0)
+                ax.set_xlim(lo - pad, hi + pad)
+                if hi >= 1e4:
+                    from matplotlib.ticker import FuncFormatter
 
-                ax.set_xscale("log")
-                ax.xaxis.set_minor_formatter(NullFormatter())  # minor labels collide
-                from matplotlib.ticker import FuncFormatter
-
-                ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
-                ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
-                ax.set_xlim(f.min() / 1.15, f.max() * 1.15)
-            elif f.size:
-                pad = 0.04 * (f.max() - f.min() or abs(f.max()) or 1.0)
-                ax.set_xlim(f.min() - pad, f.max() + pad)
-            for val, colour, ls in ((wv, VERMILLION, "-"), (nv, BLACK, "--")):
+                    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: _tick(v)))
+            for val, colour, ls, lw in ((ref, REFERENCE, ":", 1.6), (nv, BLACK, "--", 1.6),
+                                        (wv, VERMILLION, "-", 2.0)):
                 if val is not None and math.isfinite(val) and val > 0:
-                    ax.axvline(val, color=colour, lw=1.8, ls=ls, zorder=4)
-                    ax.annotate(_fmt(val), (val, 1.0), xycoords=("data", "axes fraction"),
-                                xytext=(3, -2), textcoords="offset points", ha="left", va="top",
-                                fontsize=7.5, color=colour)
+                    ax.axvline(val, color=colour, lw=lw, ls=ls, zorder=4)
             ax.set_xlabel(label + (" (log scale)" if log else ""))
-            ax.set_ylabel("variants")
-            note = []
-            if zero_count:
-                note.append(f"{zero_count} at 0 (through the origin)")
-            if note:
-                ax.text(0.98, 0.97, "\n".join(note), transform=ax.transAxes, ha="right", va="top",
-                        fontsize=7.5)
+            ax.set_ylabel("variants" + (f" ({', '.join(qb['designs'])})" if sampled_basis else ""))
+        handles = []
+        if w and w["critical_gain"] is not None and math.isfinite(w["critical_gain"]):
+            handles.append(Line2D([], [], color=VERMILLION, lw=2.0,
+                                  label=f"worst case, variant {w['variant']}: critical gain "
+                                        f"{_fmt(w['critical_gain'])}, crossing "
+                                        f"{_fmt(w['crossing_frequency'])} rad/s"))
+        if nom and nom["critical_gain"] is not None and math.isfinite(nom["critical_gain"]):
+            handles.append(Line2D([], [], color=BLACK, lw=1.6, ls="--",
+                                  label=f"nominal: critical gain {_fmt(nom['critical_gain'])}, "
+                                        f"crossing {_fmt(nom['crossing_frequency'])} rad/s"))
+        if k_ref > 0:
+            handles.append(Line2D([], [], color=REFERENCE, lw=1.6, ls=":",
+                                  label=f"reference gain {_fmt(k_ref)}"))
+        bar_label = (f"{', '.join(qb['designs'])} variants ({qb['variants']})" if sampled_basis
+                     else f"every variant ({qb['variants']}; design points, not a probability)")
+        handles.append(Patch(fc=SKY, ec=BLUE, label=bar_label))
+        drawn = rug & ((np.isfinite(crit) & (crit > 0)) | (np.isfinite(freq) & (freq > 0)))
+        for d in query.LEVEL_DESIGNS:
+            cnt = int((drawn & (design == d)).sum())
+            if cnt:
+                handles.append(Line2D([], [], marker="|", ls="none", color=DESIGN_COLOURS[d], ms=9,
+                                      mew=1.1, label=f"{d} ({cnt}), one tick each"))
+        fig.legend(handles=handles, loc="upper left", ncol=1 if len(handles) < 4 else 2,
+                   frameon=False, bbox_to_anchor=(0.065, 0.17), fontsize=7.5)
         n_inf = int(np.isposinf(crit).sum())
         n_un = int(unstable.sum())
-        msg = [f"{int(np.isfinite(crit).sum())} variants with a finite critical gain"]
+        n_zero = int(np.sum(freq == 0))
+        msg = [f"{int(np.isfinite(crit).sum())} of {crit.size} variants have a finite critical gain"]
         if n_inf:
-            msg.append(f"{n_inf} never lose stability in the gain range (critical gain inf, no bar)")
+            msg.append(f"{n_inf} never lose stability in the gain range (inf, no bar)")
         if n_un:
-            msg.append(f"{n_un} unstable at the reference gain (no bar)")
+            msg.append(f"{n_un} are unstable at the reference gain (no bar)")
             if w:
                 msg.append(f"worst case: variant {w['variant']} ({w['design']}), unstable at the "
-                           "reference gain, so no worst-case line")
-        k_ref = summary["reference_gain"]
-        if k_ref > 0:
-            axes[0].axvline(k_ref, color=REFERENCE, lw=1.4, ls=":", zorder=4)
-        handles = [Line2D([], [], color=VERMILLION, lw=1.8, label="worst case"),
-                   Line2D([], [], color=BLACK, lw=1.8, ls="--", label="nominal")]
-        if k_ref > 0:
-            handles.append(Line2D([], [], color=REFERENCE, lw=1.4, ls=":", label="reference gain"))
-        fig.legend(handles=handles, loc="lower right", ncol=len(handles), frameon=False,
-                   bbox_to_anchor=(0.99, 0.06))
-        fig.text(0.01, 0.015, "\n".join(["; ".join(msg[:2])] + msg[2:]), fontsize=8,
-                 color="#404040", ha="left", va="bottom")
+                           "reference gain")
+        if n_zero:
+            msg.append(f"{n_zero} lose stability through s = 0 (crossing frequency 0, no bar)")
+        if summary["not_computed"]:
+            msg.append(f"{summary['not_computed']} have no computed critical gain (ill-conditioned, "
+                       "no bar)")
+        fig.text(0.01, 0.012, "; ".join(msg), fontsize=7.5, color="#404040", ha="left", va="bottom",
+                 wrap=True)
         _title(fig, ds, "Where stability is lost: critical gains and crossing frequencies")
     return fig
 
@@ -669,18 +968,18 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
     InputError
         No grid design, parameters missing or not varied by the grid.
     """
-    a, b, table = plane_table(ds, params)
+    table = plane_table(ds, params)
+    b, a = table.dims
     plt = _plt()
     from matplotlib.colors import LogNorm, Normalize
+    from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
-    val = table["value"]
+    val = table.values
     # axis values with a power of ten moved into the label, as in the limits plot
-    _sa, la_label = _scaled(ds, a)
-    _sb, lb_label = _scaled(ds, b)
-    fa = _sa[0] / float(ds[a].values[0]) if float(ds[a].values[0]) else 1.0
-    fb = _sb[0] / float(ds[b].values[0]) if float(ds[b].values[0]) else 1.0
-    xa, xb = table["a"] * fa, table["b"] * fb
+    fa, la_label = _scale(ds, a)
+    fb, lb_label = _scale(ds, b)
+    xa, xb = table[a].values * fa, table[b].values * fb
     finite = val[np.isfinite(val)]
     with plt.rc_context(_STYLE):
         fig, ax = plt.subplots(figsize=(6.6, 5.2), dpi=dpi or 100)
@@ -716,9 +1015,11 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
             elif np.isnan(v):
                 ax.add_patch(_cell(edges(xa), edges(xb), i, j, fc="#f3c9b1", hatch="xx", ec=VERMILLION))
         if np.isposinf(val).any():
-            extra.append(Patch(fc="white", ec=GREEN, hatch="///", label="inf: never unstable in range"))
+            extra.append(Patch(fc="white", ec=GREEN, hatch="///",
+                               label="inf: every variant here stays stable in the gain range"))
         if np.isnan(val).any():
-            extra.append(Patch(fc="#f3c9b1", ec=VERMILLION, hatch="xx", label="unstable at reference gain"))
+            extra.append(Patch(fc="#f3c9b1", ec=VERMILLION, hatch="xx",
+                               label="a variant here is unstable at the reference gain"))
         if val.size <= 49:
             for (j, i), v in np.ndenumerate(val):
                 if np.isfinite(v):
@@ -730,8 +1031,10 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
         if finite.size:
             jw, iw = np.unravel_index(np.nanargmin(np.where(np.isfinite(val), val, np.nan)), val.shape)
             ax.plot(xa[iw], xb[jw], "s", ms=22, mfc="none", mec=VERMILLION, mew=2.2)
-            extra.append(plt.Line2D([], [], marker="s", ls="none", mfc="none", mec=VERMILLION, mew=2,
-                                    ms=10, label="smallest finite value"))
+            extra.append(Line2D([], [], marker="s", ls="none", mfc="none", mec=VERMILLION, mew=2,
+                                    ms=10, label=("smallest critical gain of the stable cells"
+                                                  if np.isnan(val).any()
+                                                  else "worst cell (smallest critical gain)")))
         nom = _nominal_index(ds)
         if nom is not None:
             # cross-hair lines, so the cell's number stays readable
@@ -742,7 +1045,7 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
                        path_effects=halo)
             ax.axhline(float(ds[b].values[nom]) * fb, color=ORANGE, lw=1.6, ls=(0, (4, 2)),
                        path_effects=halo)
-            extra.append(plt.Line2D([], [], color=ORANGE, lw=1.6, ls=(0, (4, 2)),
+            extra.append(Line2D([], [], color=ORANGE, lw=1.6, ls=(0, (4, 2)),
                                     path_effects=halo, label="nominal values"))
         cb = fig.colorbar(mesh, ax=ax, fraction=0.05, pad=0.03)
         cb.set_label("smallest critical gain over the other parameters")
@@ -765,8 +1068,11 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
         if extra:
             fig.legend(handles=extra, loc="lower center", ncol=min(len(extra), 2), frameon=False,
                        bbox_to_anchor=(0.5, 0.0))
-        _title(fig, ds, f"Critical gain over {a} and {b} ({table['n_variants']} grid variants, "
-                        f"minimum over {', '.join(table['others']) or 'nothing else'})")
+        sub = (f"Critical gain over {a} and {b} ({table.attrs['n_variants']} grid variants, "
+               f"minimum over {table.attrs['others'] or 'nothing else'})")
+        if table.attrs["not_computed"]:
+            sub += f"; {table.attrs['not_computed']} variants without a computed value left out"
+        _title(fig, ds, sub)
     return fig
 
 
@@ -776,24 +1082,26 @@ def _cell(ex, ey, i, j, **kw):
     return Rectangle((ex[i], ey[j]), ex[i + 1] - ex[i], ey[j + 1] - ey[j], lw=0.6, **kw)
 
 
-def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> tuple[str, str, dict[str, Any]]:
-    """The numbers behind the plane plot.
+def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> xr.DataArray:
+    """The numbers behind the plane plot, for notebooks too.
 
     Parameters
     ----------
     ds
         A result dataset.
     params
-        Two parameter names.
+        Two parameter names ``(A, B)``.
 
     Returns
     -------
-    (a, b, table)
-        ``table`` holds ``a`` and ``b`` (sorted grid levels), ``value`` shaped
-        ``(len(b), len(a))``: at each level pair the smallest critical gain
-        over the grid variants there (``inf`` if all are inf, NaN if any is
-        unstable at the reference gain), ``others`` (the remaining uncertain
-        parameters) and ``n_variants``.
+    xarray.DataArray
+        ``critical_gain_min`` with dims ``(B, A)`` whose coordinates are the
+        sorted grid levels: at each level pair the smallest critical gain over
+        the grid variants there (``inf`` when all are ``inf``, NaN when any is
+        unstable at the reference gain; variants without a computed critical
+        gain are left out). Attributes: ``others`` (the remaining uncertain
+        parameters, comma separated), ``n_variants`` (grid variants used) and
+        ``not_computed`` (grid variants left out).
 
     Raises
     ------
@@ -802,9 +1110,10 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> tuple[str, str,
     """
     design = _design(ds)
     present = sorted(set(design))
+    uncertain = query.uncertain_names(ds)
     if params is None or len(params) != 2:
         raise InputError("plot 'plane' needs exactly two parameters, e.g. --params "
-                         + " ".join((query.uncertain_names(ds) + ["A", "B"])[:2]), field="params")
+                         + " ".join((uncertain + ["A", "B"])[:2]), field="params")
     a, b = (str(p) for p in params)
     if a == b:
         raise InputError(f"plot 'plane': the two parameters must differ (got {a} twice)",
@@ -815,6 +1124,12 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> tuple[str, str,
             close = difflib.get_close_matches(p, known, n=1, cutoff=0.5)
             hint = f"; did you mean '{close[0]}'?" if close else f"; parameters: {', '.join(known)}"
             raise InputError(f"plot 'plane': no parameter '{p}' in the result{hint}", field="params")
+    if len(uncertain) < 2:
+        raise InputError("plot 'plane' needs two parameters that vary between the variants; this "
+                         f"result has {len(uncertain) or 'none'}"
+                         + (f" ({', '.join(uncertain)})" if uncertain else "")
+                         + "; add \"grid\" to [sweep] designs with two or more toleranced "
+                         "parameters, or use --what limits or crossings", field="params")
     if "grid" not in present:
         raise InputError("plot 'plane' uses the grid design, which this result lacks (designs: "
                          f"{', '.join(present)}); add \"grid\" to [sweep] designs (levels = 5 or so) "
@@ -826,18 +1141,25 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> tuple[str, str,
     for p, x in ((a, xa), (b, xb)):
         if np.ptp(x) == 0:
             raise InputError(f"plot 'plane': parameter '{p}' does not vary over the grid design "
-                             f"(it is fixed); choose among {', '.join(query.uncertain_names(ds))}",
-                             field="params")
+                             f"(it is fixed); choose among {', '.join(uncertain)}", field="params")
     la, ia = np.unique(xa, return_inverse=True)
     lb, ib = np.unique(xb, return_inverse=True)
-    y = np.where(unstable[m], np.nan, crit[m])
+    y = crit[m]
+    uns = unstable[m]
+    missing = ~uns & np.isnan(y)  # stable but not computed: left out of the minimum
     val = np.full((lb.size, la.size), np.inf)
-    np.minimum.at(val, (ib, ia), np.where(np.isnan(y), np.inf, y))
+    np.minimum.at(val, (ib, ia), np.where(uns | missing, np.inf, y))
     bad = np.zeros_like(val, bool)
-    np.logical_or.at(bad, (ib, ia), np.isnan(y))
+    np.logical_or.at(bad, (ib, ia), uns)
     val[bad] = np.nan
-    others = [n for n in query.uncertain_names(ds) if n not in (a, b)]
-    return a, b, {"a": la, "b": lb, "value": val, "others": others, "n_variants": int(m.sum())}
+    others = [n for n in uncertain if n not in (a, b)]
+    out = xr.DataArray(val, dims=(b, a), coords={b: lb, a: la}, name="critical_gain_min")
+    for name in (a, b):
+        out[name].attrs.update(ds[name].attrs)
+    out.attrs.update(long_name="smallest critical gain over the other parameters", units="1",
+                     others=", ".join(others), n_variants=int(m.sum()),
+                     not_computed=int(missing.sum()))
+    return out
 
 
 # ------------------------------------------------------------------ front
@@ -905,11 +1227,14 @@ def plot(ds: xr.Dataset, what: str, out: str | Path, *, params: Sequence[str] | 
         raise InputError(f"cannot write '{out.suffix or 'no extension'}': end the file name in "
                          ".png, .svg or .pdf", file=str(out), field="-o")
     fig = figure(ds, what, params=params, dpi=dpi)
-    plt = _plt()
+    tmp = out.with_name(f".{out.name}.{os.getpid()}.tmp")
     try:
         out.parent.mkdir(parents=True, exist_ok=True)
         meta = {"Creator": "sweep"} if fmt in ("pdf", "svg") else None
-        fig.savefig(out, format=fmt, dpi=dpi or 150, metadata=meta)
+        # write beside the target and rename: a failed save never leaves half an image
+        fig.savefig(tmp, format=fmt, dpi=dpi or 150, metadata=meta)
+        os.replace(tmp, out)
     finally:
-        plt.close(fig)
+        if tmp.exists():
+            tmp.unlink()
     return out

@@ -296,6 +296,26 @@ def _worst_unstable(ds: xr.Dataset, unstable: np.ndarray, k_ref: float) -> tuple
     return int(idx[0]), math.nan, "first unstable variant (no closed-loop roots stored)"
 
 
+def _average_ranks(x: np.ndarray) -> np.ndarray:
+    """Ranks 1..n, ties sharing their mean rank (``inf`` and ``-inf`` rank like numbers)."""
+    _vals, inverse, counts = np.unique(x, return_inverse=True, return_counts=True)
+    upper = np.cumsum(counts)
+    return (upper - 0.5 * (counts - 1))[inverse.ravel()].astype(float)
+
+
+def spearman(x: np.ndarray, y: np.ndarray) -> float:
+    """Spearman rank correlation: Pearson correlation of the average ranks (0 when undefined).
+
+    Plain numpy (no scipy import on the query path); tests compare it with
+    ``scipy.stats.spearmanr``.
+    """
+    rx, ry = _average_ranks(np.asarray(x, float)), _average_ranks(np.asarray(y, float))
+    rx -= rx.mean()
+    ry -= ry.mean()
+    den = math.sqrt(float(rx @ rx) * float(ry @ ry))
+    return 0.0 if den == 0 else float(rx @ ry) / den
+
+
 def _sensitivity(ds: xr.Dataset, crit: np.ndarray, unstable: np.ndarray, k_ref: float,
                  nominal_crit: float | None) -> tuple[list[dict], dict]:
     """Parameter influence on the critical gain; see `summarize`."""
@@ -306,8 +326,6 @@ def _sensitivity(ds: xr.Dataset, crit: np.ndarray, unstable: np.ndarray, k_ref: 
     if not names:
         return [], {"measure": None, "designs": [], "note": "no uncertain parameters"}
     if sampled.sum() >= MIN_SAMPLES_FOR_RANKS:
-        from scipy.stats import spearmanr
-
         used = _present(design, sampled, SAMPLED_DESIGNS)
         # ranks: unstable variants lowest (-inf), inf highest; numpy ranks both ends fine
         y = np.where(unstable, -np.inf, crit)[sampled]
@@ -320,11 +338,7 @@ def _sensitivity(ds: xr.Dataset, crit: np.ndarray, unstable: np.ndarray, k_ref: 
         out = []
         for n in names:
             x = np.asarray(ds[n].values, float)[sampled][keep]
-            if np.ptp(x) == 0:
-                rho = 0.0
-            else:
-                rho = float(spearmanr(x, y[keep]).statistic)
-                rho = 0.0 if math.isnan(rho) else rho
+            rho = 0.0 if np.ptp(x) == 0 else spearman(x, y[keep])
             out.append({"parameter": n, "score": rho, "measure": "spearman"})
         out.sort(key=lambda d: -abs(d["score"]))
         return out, {"measure": "spearman", "designs": used,

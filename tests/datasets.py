@@ -491,3 +491,37 @@ def _config_text(fam, title, ranges, designs, samples, levels, seed, operating_g
               "", "[locus]", f"points = {points}", f'keep = "{keep_text}"', ""]
     return "\n".join(lines)
 
+
+
+def tiled(ds: xr.Dataset, times: int, *, jitter: float = 0.02, seed: int = 5) -> xr.Dataset:
+    """A large dataset for figure tests: the variants of ``ds`` repeated ``times`` times.
+
+    The copies' sampled parameters and critical gains are scaled by a small
+    random factor so points do not sit on each other; the nominal stays once.
+    Only for drawing: the numbers are no longer a consistent analysis.
+    """
+    rng = np.random.default_rng(seed)
+    rest = ds.isel(variant=slice(1, None))
+    parts = [ds.isel(variant=slice(0, 1))]
+    for _ in range(times):
+        part = rest.copy(deep=True)
+        f = 1 + jitter * rng.standard_normal(part.sizes["variant"])
+        sampled = np.isin(part["design"].values, ("random", "lhs", "sobol"))
+        for name in ("critical_gain", "crossing_frequency"):
+            part[name].values[:] = np.where(sampled, part[name].values * f, part[name].values)
+        parts.append(part.drop_vars(["locus_real", "locus_imag", "locus_variant"]))
+    big = xr.concat([p.drop_vars(["locus_real", "locus_imag", "locus_variant"], errors="ignore")
+                     for p in parts], dim="variant", data_vars="minimal", coords="minimal",
+                    compat="override")
+    big = big.assign_coords(variant=np.arange(big.sizes["variant"]))
+    # every copy keeps its locus: locus_variant maps to the new variant numbers
+    lv = np.asarray(ds["locus_variant"].values)
+    n = ds.sizes["variant"] - 1
+    new_lv = np.concatenate([lv[lv == 0]] + [lv[lv > 0] + k * n for k in range(times)])
+    reps = [ds["locus_real"].values[lv == 0]] + [ds["locus_real"].values[lv > 0]] * times
+    repi = [ds["locus_imag"].values[lv == 0]] + [ds["locus_imag"].values[lv > 0]] * times
+    big.coords["locus_variant"] = ("locus_variant", new_lv, dict(ds["locus_variant"].attrs))
+    big["locus_real"] = (("locus_variant", "gain", "branch"), np.concatenate(reps), ds["locus_real"].attrs)
+    big["locus_imag"] = (("locus_variant", "gain", "branch"), np.concatenate(repi), ds["locus_imag"].attrs)
+    big.attrs = dict(ds.attrs)
+    return big
