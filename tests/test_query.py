@@ -17,8 +17,8 @@ import xarray as xr
 
 from sweep import jsonutil
 from sweep.errors import InputError
-from sweep.query import (QUANTILES, format_summary, quantile_basis, ranked_quantile, summarize,
-                         worst_variants)
+from sweep.query import (QUANTILES, format_summary, quantile_basis, ranked_quantile, spearman,
+                         summarize, worst_variants)
 
 from datasets import (FAMILIES, char_roots, closed_form, make_dataset, not_computed, polynomials,
                       variant_polynomials)
@@ -264,6 +264,22 @@ def test_inf_quantiles(datasets):
     assert jsonutil.to_jsonable(s2)["robust_gain_interval"] == [0.0, "inf"]
     assert s2["sensitivity"] == [] and "nothing to rank" in s2["sensitivity_method"]["note"]
     assert jsonutil.to_jsonable(s2["worst"])["crossing_frequency"] is None
+
+
+def test_spearman_against_scipy():
+    # our numpy Spearman (average ranks for ties, infinities ranked like numbers) against scipy
+    from scipy.stats import spearmanr
+
+    rng = np.random.default_rng(3)
+    for _ in range(200):
+        n = int(rng.integers(3, 60))
+        x = rng.integers(0, 4, n).astype(float) if rng.random() < 0.5 else rng.normal(size=n)
+        y = rng.normal(size=n)
+        y[rng.random(n) < 0.15] = np.inf
+        y[rng.random(n) < 0.15] = -np.inf
+        want = spearmanr(x, y).statistic
+        got = spearman(x, y)
+        assert got == pytest.approx(0.0 if np.isnan(want) else want, abs=1e-12)
 
 
 def test_ranked_quantile_edges():
