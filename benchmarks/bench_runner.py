@@ -9,14 +9,16 @@ Run: ``python benchmarks/bench_runner.py [--base 2000] [--mem-chunk 1000] [--spe
    child). Target: the 10x run needs at most 1.5x the memory.
 2. Run time (inside the child, imports excluded) of a ``speed``-sized run
    with ``jobs=1`` and ``jobs=2``, side by side. Target: ``-j 2`` at least
-   1.6x faster than ``-j 1`` (needs two free cores; the joblib worker
-   start-up, about 1-2 s, is inside the ``-j 2`` time, so the run must be
-   long enough: the default 65000 samples make 16 chunks of 4096).
+   1.6x faster than ``-j 1`` (needs two free cores; ``-j 2`` is this
+   process plus one joblib worker, whose start-up overlaps the run's set-up;
+   the default 65000 samples make 16 chunks of 4096).
 
 Also printed: the sum of the per-chunk compute times (from ``OUT.log``)
 over the run time, i.e. how many chunks were being computed at once on
-average; on a loaded machine it shows whether a miss is the runner's or the
-machine's.
+average (on a loaded machine it shows whether a miss is the runner's or the
+machine's), and the serial overheads read from ``OUT.log``: the set-up
+before the first chunk, the mean time to write a part and to merge it into
+the result, and the final merge step (envelope fold, rename).
 
 Prints the figures and PASS/FAIL per target; exit status 0 either way (the
 numbers are for the report, not an assertion).
@@ -63,15 +65,18 @@ keep = "corners"
 """
 
 CHILD = """
-import json, resource, sys, time
+import json, re, resource, sys, time
 from sweep import runner
 from sweep.config import load_config
 t0 = time.perf_counter()
 runner.run(load_config(sys.argv[1]), out=sys.argv[2], jobs=int(sys.argv[3]), quiet=True)
 dt = time.perf_counter() - t0
-log = open(sys.argv[2] + ".log").read().split()
-busy = sum(float(log[i + 1]) for i, w in enumerate(log) if w == "in" and log[i - 1] == "computed")
-print(json.dumps({"seconds": dt, "chunk_seconds": busy,
+log = open(sys.argv[2] + ".log").read()
+num = lambda pat: [float(x) for x in re.findall(pat, log)]
+print(json.dumps({"seconds": dt,
+                  "chunk_seconds": sum(num(r"computed in ([0-9.]+) s")),
+                  "write": num(r"written in ([0-9.]+) s"), "merge": num(r"merged in ([0-9.]+) s"),
+                  "setup": num(r"set-up ([0-9.]+) s")[-1], "final": num(r"final merge step ([0-9.]+) s")[-1],
                   "maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss}))
 """
 
@@ -120,6 +125,11 @@ def main() -> None:
               f"-j 2 {j2['seconds']:.2f} s ({(args.speed + 9) / j2['seconds']:.0f} variants/s)")
         print(f"chunk compute seconds / run seconds (workers kept busy): -j 1 "
               f"{j1['chunk_seconds'] / j1['seconds']:.2f}, -j 2 {j2['chunk_seconds'] / j2['seconds']:.2f}")
+        for tag, r in (("-j 1", j1), ("-j 2", j2)):
+            print(f"serial overheads {tag}: set-up (designs, gain grid, pool start) {r['setup']:.3f} s, "
+                  f"per part: write {sum(r['write']) / len(r['write']):.3f} s, "
+                  f"merge into the result {sum(r['merge']) / len(r['merge']):.3f} s; "
+                  f"final merge step {r['final']:.3f} s")
         print(f"speed-up -j 2 over -j 1: {sp:.2f}x  target >= 1.6  {'PASS' if sp >= 1.6 else 'FAIL'}"
               f"  (cores: {os.cpu_count()}, load average {os.getloadavg()[0]:.2f})")
 

@@ -460,8 +460,8 @@ def _manifest(config: Config, out: Path, parts: Path, variants: Variants, log: _
                 )
             log(f"resuming from {parts.name}")
             return man
-        log(f"{MANIFEST} unreadable; starting the parts again")
-        shutil.rmtree(parts)
+        # the parts stay: each is checked against the new manifest (hash, range, grid, kept loci)
+        log(f"{MANIFEST} unreadable; writing it again")
     parts.mkdir(parents=True, exist_ok=True)
     gains = nominal_gains(config)
     mask = kept_mask(config, variants)
@@ -476,6 +476,15 @@ def _manifest(config: Config, out: Path, parts: Path, variants: Variants, log: _
     }
     _write_json(path, man)
     return man
+
+
+def _check_part(part: store.Part, name: str, gains: np.ndarray, kept: np.ndarray) -> None:
+    """A part on disk must have been computed on the run's gain grid and keep the run's loci."""
+    if not np.array_equal(part["gain"], gains):
+        raise store.PartError(f"{name}: computed on another gain grid")
+    lv = part["locus_variant"] if "locus_variant" in part else np.zeros(0, np.int64)
+    if not np.array_equal(lv, kept):
+        raise store.PartError(f"{name}: keeps the loci of other variants")
 
 
 def _remove_leftovers(out: Path, parts: Path, log: _Log) -> None:
@@ -721,6 +730,7 @@ def _run_locked(config: Config, out: Path, parts: Path, log: _Log, count: int, s
             if p.exists():
                 try:
                     part = store.read_part(p, config_sha256=config.sha256, start=a, stop=b)
+                    _check_part(part, p.name, gains, kept[(kept >= a) & (kept < b)])
                 except store.PartError as err:
                     log(f"chunk {i}: {err}; computing it again")
                     p.unlink()

@@ -263,6 +263,31 @@ def test_sigkill_parallel_run_then_resume_is_identical(tmp_path, reference):
     assert not (tmp_path / "kp.nc.parts").exists()
 
 
+@pytest.mark.slow
+def test_ctrl_c_on_a_parallel_run_prints_the_resume_command(tmp_path, reference):
+    """SIGINT to the whole process group (what Ctrl-C in a terminal does) of `sweep run -j 2`."""
+    cfg_path = write_config(tmp_path)
+    out = tmp_path / "c.nc"
+    env = dict(os.environ, SWEEP_TEST_PAUSE="chunks:2")
+    proc = subprocess.Popen([sys.executable, "-m", "sweep", "run", str(cfg_path), "-o", str(out), "-j", "2",
+                             "--quiet"], env=env, cwd=tmp_path, stderr=subprocess.PIPE, text=True,
+                            start_new_session=True)
+    try:
+        wait_for_log(out, "test pause chunks:2", proc)
+        os.killpg(proc.pid, signal.SIGINT)
+        _, err = proc.communicate(timeout=30)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+    assert proc.returncode == 130, err
+    assert "--resume" in err and str(out) in err, err
+    assert not (tmp_path / "c.nc.lock").exists() and not out.exists()
+    assert len(list((tmp_path / "c.nc.parts").glob("chunk-*.nc"))) >= 2
+    assert "interrupted;" in (tmp_path / "c.nc.log").read_text()
+    runner.run(load_config(cfg_path), out=out, jobs=2, resume=True, quiet=True)
+    xr.testing.assert_identical(load(out), reference)
+
+
 def test_changed_config_refused(tmp_path, monkeypatch):
     cfg_path = write_config(tmp_path)
     out = tmp_path / "c.nc"
@@ -297,6 +322,26 @@ def test_corrupt_part_recomputed(tmp_path, reference, monkeypatch):
     xr.testing.assert_identical(load(out), reference)
     assert stamp  # chunk 1 was reused, not rewritten (its log line appears once)
     assert log.count("chunk 1 variants") == 1
+
+
+def test_unreadable_manifest_and_foreign_grid(tmp_path, reference, monkeypatch):
+    """A damaged manifest loses no part; a part computed on another gain grid is recomputed."""
+    import netCDF4
+
+    cfg_path = write_config(tmp_path)
+    out = tmp_path / "m.nc"
+    monkeypatch.setattr(runner.store.ResultWriter, "finish", _boom)
+    with pytest.raises(RuntimeError):
+        runner.run(load_config(cfg_path), out=out, jobs=1, quiet=True)
+    monkeypatch.undo()
+    (tmp_path / "m.nc.parts" / "manifest.json").write_text('{"config_sha2')
+    with netCDF4.Dataset(tmp_path / "m.nc.parts" / "chunk-00003.nc", "a") as nc:
+        nc["gain"][0] = nc["gain"][0] * 1.5
+    runner.run(load_config(cfg_path), out=out, jobs=1, quiet=True)
+    log = (tmp_path / "m.nc.log").read_text()
+    assert "manifest.json unreadable; writing it again" in log
+    assert "chunk 3: chunk-00003.nc: computed on another gain grid" in log and "5 valid on disk, 1 to compute" in log
+    xr.testing.assert_identical(load(out), reference)
 
 
 def test_lock_refused_while_alive_and_stale_taken_over(tmp_path):
