@@ -622,14 +622,15 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
                 sampled = d in query.SAMPLED_DESIGNS
                 alpha = float(np.clip(400.0 / max(count, 1), 0.15, 0.8)) if sampled else 0.9
                 f = m & np.isfinite(crit)
+                dense = count > 1000  # rasterised inside SVG/PDF so vector files stay small
                 ax.scatter(x[f], crit[f], s=10 if sampled else 16, color=c, alpha=alpha, lw=0,
-                           zorder=3 if sampled else 4, rasterized=count > 5000)
+                           zorder=3 if sampled else 4, rasterized=dense)
                 inf_m = m & np.isposinf(crit)
                 ax.scatter(x[inf_m], np.full(inf_m.sum(), y_inf), marker="^", s=22, color=c,
-                           alpha=max(alpha, 0.5), lw=0, clip_on=False, zorder=4)
+                           alpha=max(alpha, 0.5), lw=0, clip_on=False, zorder=4, rasterized=dense)
                 u = m & unstable
                 ax.scatter(x[u], np.full(u.sum(), y_bot), marker="x", s=20, color=c, lw=1,
-                           alpha=max(alpha, 0.5), clip_on=False, zorder=4)
+                           alpha=max(alpha, 0.5), clip_on=False, zorder=4, rasterized=dense)
             if ref_in_view:
                 ax.axhline(k_ref, color=REFERENCE, lw=1.2, ls="--", zorder=2)
             if nom is not None:
@@ -768,7 +769,7 @@ def envelope_figure(ds: xr.Dataset, *, dpi: float | None = None):
         ylabel = "spectral abscissa [1/s]\n(largest real part of a root)"
         if symlog:
             ax.set_yscale("symlog", linthresh=linthresh, linscale=1.0)
-            y0, y1 = -1.5 * max(-lo_y, linthresh), 1.5 * max(hi_y, linthresh)
+            y0, y1 = -3.0 * max(-lo_y, linthresh), 3.0 * max(hi_y, linthresh)  # ~half a decade of room
             ax.set_ylim(y0, y1)
             e0 = math.ceil(math.log10(linthresh))
             ticks = [0.0]
