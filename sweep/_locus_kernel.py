@@ -1,15 +1,22 @@
 """Compiled core of the root-locus continuation (see `sweep.locus.trace`).
 
-One loop over the variants of a chunk, and for each variant one loop over
-the gain grid: predict every branch (quadratic in ``k`` from the last two
-gains and the root velocity ``ds/dk``), correct with Newton on
-``P = D + sigma k N``, accept the step only when every root converged and
-stayed well inside its own neighbourhood, and otherwise redo the step from
-the companion-matrix roots matched optimally to the (capped) prediction.
-The rules are those documented in `sweep.locus.trace`; this module only
-makes them run without a Python loop per variant or per gain.
+Variants go through in blocks; for each block, one loop over the gain grid:
+predict every branch (quadratic in ``k`` from the last two gains and the
+root velocity ``ds/dk``), correct with Newton on ``P = D + sigma k N``,
+accept the step only when every root converged and stayed well inside its
+own neighbourhood, and otherwise redo the step from the companion-matrix
+roots matched optimally to the (capped) prediction. The rules are those
+documented in `sweep.locus.trace`; this module only makes them run without
+a Python loop per variant or per gain.
 
-Nothing here allocates per step: every buffer is made once per call.
+The common path (prediction, two Newton steps, the separation test, the
+velocity) runs for a whole block at once with the variants innermost, which
+the compiler turns into vector instructions; whatever only some variants
+need (more Newton steps, the residual test, the fall-back, an exact
+velocity) runs variant by variant. Each variant's arithmetic is the same
+whatever else is in its block, so a chunk gives exactly the results of its
+variants traced one at a time. Nothing allocates per step: every buffer is
+made once per call.
 """
 from __future__ import annotations
 
@@ -29,11 +36,6 @@ ST_NEWTON_ITERATIONS = 4
 N_STATS = 5
 
 _NAN = complex(math.nan, math.nan)
-
-
-@njit(cache=True, error_model="numpy", inline="always")
-def _abs2(z: complex) -> float:
-    return z.real * z.real + z.imag * z.imag
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -130,18 +132,6 @@ def _horner(c, z: complex) -> complex:
     return p
 
 
-@njit(cache=True, error_model="numpy", inline="always")
-def _lead_zeros(P, Nv, Dv, k: float, eps: float) -> int:
-    """Leading coefficients of P that vanish to rounding (see `sweep.locus._lead_zeros`)."""
-    cnt = 0
-    for i in range(P.shape[0]):
-        if abs(P[i]) <= 16.0 * eps * (abs(Dv[i]) + abs(k * Nv[i])):
-            cnt += 1
-        else:
-            break
-    return cnt
-
-
 @njit(cache=True, error_model="numpy")
 def _fallback_step(P, nz, pred, prev, out, scratch_roots, cost, perm, work, wr, wi,
                    u, v, p, way, minv, used, qr_max_its) -> bool:
@@ -202,47 +192,141 @@ def _fallback_step(P, nz, pred, prev, out, scratch_roots, cost, perm, work, wr, 
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _newton_step(P, zr, zi, dr, di, ar, pr, pi) -> None:
-    """One Newton step on every root at once, in place; ``ar`` gets each step's size.
+def _newton_quotient(pr: float, pi: float, dr: float, di: float):
+    """(pr + i pi) / (dr + i di), plain formula unless it would over- or underflow."""
+    den = dr * dr + di * di
+    if den > 1e-280 and den < 1e280:
+        return (pr * dr + pi * di) / den, (pi * dr - pr * di) / den
+    q = complex(pr, pi) / complex(dr, di)
+    return q.real, q.imag
 
-    Real and imaginary parts are kept in separate arrays and the Horner loop
-    runs over the roots innermost, so the independent evaluations interleave
-    (and vectorise) instead of waiting on one dependency chain at a time.
-    ``dr + i di`` receives ``P'`` at the roots before the step; ``pr``, ``pi``
-    are scratch.
+
+#: variants traced side by side: every per-root loop runs over a block of this
+#: many variants innermost, so the compiler turns it into vector instructions
+BLOCK = 128
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _is_finite(x: float) -> bool:
+    # the arithmetic form vectorises where a call to isfinite would not
+    return x - x == 0.0
+
+
+@njit(cache=True, error_model="numpy")
+def _block_newton(P, zr, zi, dr, di, ar, hr, hi, L: int) -> None:
+    """One Newton step on every root of the first ``L`` variants of a block.
+
+    Layout ``[root, variant]`` (``P`` is ``[coefficient, variant]``); ``dr + i di``
+    receives ``P'`` before the step, ``ar`` the step's size; ``hr``, ``hi``
+    are scratch. Where ``|P'|^2`` leaves the normal range the root is left
+    as it was, its step size NaN, for `_fix_quotients` to redo with a scaled
+    division.
     """
     n = zr.shape[0]
     w = P.shape[0]
     for i in range(n):
-        pr[i] = P[0]
-        pi[i] = 0.0
-        dr[i] = 0.0
-        di[i] = 0.0
-    for j in range(1, w):
-        c = P[j]
-        for i in range(n):
-            xr = zr[i]
-            xi = zi[i]
-            tr = dr[i] * xr - di[i] * xi + pr[i]
-            ti = dr[i] * xi + di[i] * xr + pi[i]
-            dr[i] = tr
-            di[i] = ti
-            tr = pr[i] * xr - pi[i] * xi + c
-            ti = pr[i] * xi + pi[i] * xr
-            pr[i] = tr
-            pi[i] = ti
+        zri = zr[i]
+        zii = zi[i]
+        dri = dr[i]
+        dii = di[i]
+        ari = ar[i]
+        P0 = P[0]
+        for b in range(L):
+            hr[b] = P0[b]
+            hi[b] = 0.0
+            dri[b] = 0.0
+            dii[b] = 0.0
+        for j in range(1, w):
+            Pj = P[j]
+            for b in range(L):
+                xr = zri[b]
+                xi = zii[b]
+                tr = dri[b] * xr - dii[b] * xi + hr[b]
+                ti = dri[b] * xi + dii[b] * xr + hi[b]
+                dri[b] = tr
+                dii[b] = ti
+                tr = hr[b] * xr - hi[b] * xi + Pj[b]
+                ti = hr[b] * xi + hi[b] * xr
+                hr[b] = tr
+                hi[b] = ti
+        for b in range(L):
+            den = dri[b] * dri[b] + dii[b] * dii[b]
+            sr = (hr[b] * dri[b] + hi[b] * dii[b]) / den
+            si = (hi[b] * dri[b] - hr[b] * dii[b]) / den
+            a = math.sqrt(sr * sr + si * si)
+            if not (den > 1e-280 and den < 1e280):
+                # left for `_fix_quotients`: the root stays, the step size says why
+                sr = 0.0
+                si = 0.0
+                a = math.nan
+            ari[b] = a
+            zri[b] -= sr
+            zii[b] -= si
+
+
+@njit(cache=True, error_model="numpy")
+def _block_check(P, zr, zi, dr, di, ar, hr, hi, L: int) -> None:
+    """A Newton step with the derivative kept from `_block_newton` (only ``P`` is evaluated)."""
+    n = zr.shape[0]
+    w = P.shape[0]
     for i in range(n):
-        den = dr[i] * dr[i] + di[i] * di[i]
-        if den > 1e-280 and den < 1e280:
-            sr = (pr[i] * dr[i] + pi[i] * di[i]) / den
-            si = (pi[i] * dr[i] - pr[i] * di[i]) / den
-        else:  # scaled complex division where the plain formula would over- or underflow
-            q = complex(pr[i], pi[i]) / complex(dr[i], di[i])
-            sr = q.real
-            si = q.imag
-        zr[i] -= sr
-        zi[i] -= si
-        ar[i] = math.sqrt(sr * sr + si * si)
+        zri = zr[i]
+        zii = zi[i]
+        dri = dr[i]
+        dii = di[i]
+        ari = ar[i]
+        P0 = P[0]
+        for b in range(L):
+            hr[b] = P0[b]
+            hi[b] = 0.0
+        for j in range(1, w):
+            Pj = P[j]
+            for b in range(L):
+                xr = zri[b]
+                xi = zii[b]
+                tr = hr[b] * xr - hi[b] * xi + Pj[b]
+                ti = hr[b] * xi + hi[b] * xr
+                hr[b] = tr
+                hi[b] = ti
+        for b in range(L):
+            den = dri[b] * dri[b] + dii[b] * dii[b]
+            sr = (hr[b] * dri[b] + hi[b] * dii[b]) / den
+            si = (hi[b] * dri[b] - hr[b] * dii[b]) / den
+            a = math.sqrt(sr * sr + si * si)
+            if not (den > 1e-280 and den < 1e280):
+                # left for `_fix_quotients`: the root stays, the step size says why
+                sr = 0.0
+                si = 0.0
+                a = math.nan
+            ari[b] = a
+            zri[b] -= sr
+            zii[b] -= si
+
+
+@njit(cache=True, error_model="numpy")
+def _lane_newton(Pl, zr, zi, dr, di, ar, b: int, full: bool) -> None:
+    """One Newton step on the roots of variant ``b`` of a block, scalar and exact.
+
+    ``full``: evaluate ``P'`` too (else keep ``dr, di``). Used where the block
+    step flagged a quotient out of range, and for further iterations.
+    """
+    n = zr.shape[0]
+    w = Pl.shape[0]
+    for i in range(n):
+        x = complex(zr[i, b], zi[i, b])
+        p = complex(Pl[0])
+        dp = 0j
+        for j in range(1, w):
+            if full:
+                dp = dp * x + p
+            p = p * x + Pl[j]
+        if full:
+            dr[i, b] = dp.real
+            di[i, b] = dp.imag
+        sr, si = _newton_quotient(p.real, p.imag, dr[i, b], di[i, b])
+        zr[i, b] = x.real - sr
+        zi[i, b] = x.imag - si
+        ar[i, b] = math.sqrt(sr * sr + si * si)
 
 
 @njit(cache=True, error_model="numpy")
@@ -250,6 +334,12 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
                       out_kept, out_op, abscissa, status, stats,
                       newton_maxit, newton_rtol, dominance, eps, qr_max_its):
     """Follow every branch of every variant from ``gains[0]`` to ``gains[-1]``.
+
+    Variants go through in blocks of `BLOCK`; within a block every step is
+    computed for all variants at once and then finished variant by variant
+    where a variant needs more (further Newton steps, the residual test, the
+    eigenvalue fall-back, an exact velocity). Every variant's arithmetic is
+    the same whatever else is in its block.
 
     Parameters
     ----------
@@ -279,28 +369,39 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
     V, w = D.shape
     n = w - 1
     G = gains.shape[0]
-    P = np.empty(w)
-    # per-branch state, real and imaginary parts apart (see _newton_step)
-    p2r = np.empty(n)
-    p2i = np.empty(n)
-    p1r = np.empty(n)
-    p1i = np.empty(n)
-    vr = np.empty(n)
-    vi = np.empty(n)
-    qr = np.empty(n)
-    qi = np.empty(n)
-    zr = np.empty(n)
-    zi = np.empty(n)
-    dr = np.empty(n)
-    di = np.empty(n)
-    ar = np.empty(n)
-    hr = np.empty(n)
-    hi = np.empty(n)
-    last = np.empty(n)
-    # complex views for the fall-back and the bookkeeping
+    B = BLOCK
+    Nt = np.empty((w, B))
+    Dt = np.empty((w, B))
+    P = np.empty((w, B))
+    # branch state, [root, variant]: two gains back, one gain back, the new roots
+    p2r = np.empty((n, B))
+    p2i = np.empty((n, B))
+    p1r = np.empty((n, B))
+    p1i = np.empty((n, B))
+    zr = np.empty((n, B))
+    zi = np.empty((n, B))
+    vr = np.empty((n, B))
+    vi = np.empty((n, B))
+    qr = np.empty((n, B))
+    qi = np.empty((n, B))
+    dr = np.empty((n, B))
+    di = np.empty((n, B))
+    ar = np.empty((n, B))
+    last = np.empty((n, B))
+    near2 = np.empty((n, B))
+    hr = np.empty(B)
+    hi = np.empty(B)
+    sc = np.empty(B)
+    flag = np.empty(B, dtype=np.bool_)
+    ok = np.empty(B, dtype=np.bool_)
+    done = np.empty(B, dtype=np.bool_)
+    good = np.empty(B, dtype=np.bool_)
+    failed = np.empty(B, dtype=np.bool_)
+    # one variant's scratch for the scalar paths
+    Pl = np.empty(w)
     pred = np.empty(n, dtype=np.complex128)
     prev = np.empty(n, dtype=np.complex128)
-    z = np.empty(n, dtype=np.complex128)
+    zc = np.empty(n, dtype=np.complex128)
     roots = np.empty(n, dtype=np.complex128)
     cost = np.empty((n, n))
     perm = np.empty(n, dtype=np.int64)
@@ -314,196 +415,295 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
     minv = np.empty(n + 1)
     used = np.empty(n + 1, dtype=np.bool_)
     d3 = dominance * dominance
-    for v in range(V):
-        Nv = N[v]
-        Dv = D[v]
-        kr = keep_row[v]
-        for i in range(n):
-            p2r[i] = poles[v, i].real
-            p2i[i] = poles[v, i].imag
-            p1r[i] = first[v, i].real
-            p1i[i] = first[v, i].imag
-            vr[i] = vel0[v, i].real
-            vi[i] = vel0[v, i].imag
-            z[i] = first[v, i]
+    first_steps = min(newton_maxit, 2)
+
+    for start in range(0, V, B):
+        L = min(B, V - start)
+        for b in range(L):
+            v = start + b
+            for j in range(w):
+                Nt[j, b] = N[v, j]
+                Dt[j, b] = D[v, j]
+            for i in range(n):
+                p2r[i, b] = poles[v, i].real
+                p2i[i, b] = poles[v, i].imag
+                p1r[i, b] = first[v, i].real
+                p1i[i, b] = first[v, i].imag
+                vr[i, b] = vel0[v, i].real
+                vi[i, b] = vel0[v, i].imag
+            failed[b] = False
+        _block_record(start, L, 0, p1r, p1i, keep_row, op_index, out_kept, out_op, abscissa)
         k2 = 0.0
         k1 = gains[0]
-        _record(v, 0, z, kr, op_index, out_kept, out_op, abscissa)
-        failed = False
         for gi in range(1, G):
             k = gains[gi]
+            skk = sg * k
             # -- predict: quadratic through (k2, prev2), (k1, prev1) with slope vel at k1
             h0 = k1 - k2
             h = k - k1
             inv = 1.0 / (h0 * h0)
-            all_finite = True
+            for b in range(L):
+                flag[b] = False
             for i in range(n):
-                cr = (p2r[i] - p1r[i] + vr[i] * h0) * inv
-                ci = (p2i[i] - p1i[i] + vi[i] * h0) * inv
-                xr = p1r[i] + h * (vr[i] + cr * h)
-                xi = p1i[i] + h * (vi[i] + ci * h)
-                if not (math.isfinite(xr) and math.isfinite(xi)):
-                    xr = p1r[i] + h * vr[i]
-                    xi = p1i[i] + h * vi[i]
-                    if not (math.isfinite(xr) and math.isfinite(xi)):
-                        xr = p1r[i]
-                        xi = p1i[i]
-                        if not (math.isfinite(xr) and math.isfinite(xi)):
-                            all_finite = False
-                qr[i] = xr
-                qi[i] = xi
+                for b in range(L):
+                    cr = (p2r[i, b] - p1r[i, b] + vr[i, b] * h0) * inv
+                    ci = (p2i[i, b] - p1i[i, b] + vi[i, b] * h0) * inv
+                    xr = p1r[i, b] + h * (vr[i, b] + cr * h)
+                    xi = p1i[i, b] + h * (vi[i, b] + ci * h)
+                    qr[i, b] = xr
+                    qi[i, b] = xi
+                    if not (_is_finite(xr) and _is_finite(xi)):
+                        flag[b] = True
             for j in range(w):
-                P[j] = Dv[j] + sg * k * Nv[j]
-            nz = _lead_zeros(P, Nv, Dv, k, eps)
-            ok = all_finite
-            if nz > 0:
-                stats[ST_DEGREE_DROP] += 1
-                ok = False
-            good = False
-            if ok:
-                # -- correct: Newton from the prediction
-                sc = 0.0
+                for b in range(L):
+                    P[j, b] = Dt[j, b] + skk * Nt[j, b]
+            for b in range(L):
+                ok[b] = not failed[b]
+                if flag[b]:
+                    # linear step where the curvature is not finite, else the previous root
+                    for i in range(n):
+                        if not (_is_finite(qr[i, b]) and _is_finite(qi[i, b])):
+                            xr = p1r[i, b] + h * vr[i, b]
+                            xi = p1i[i, b] + h * vi[i, b]
+                            if not (_is_finite(xr) and _is_finite(xi)):
+                                xr = p1r[i, b]
+                                xi = p1i[i, b]
+                                if not (_is_finite(xr) and _is_finite(xi)):
+                                    ok[b] = False
+                            qr[i, b] = xr
+                            qi[i, b] = xi
+                # a leading coefficient of P at rounding level: the degree drops
+                if abs(P[0, b]) <= 16.0 * eps * (abs(Dt[0, b]) + abs(k * Nt[0, b])):
+                    stats[ST_DEGREE_DROP] += 1
+                    ok[b] = False
+            # -- correct: Newton from the prediction, on every variant of the block
+            for b in range(L):
+                sc[b] = 0.0
+            for i in range(n):
+                for b in range(L):
+                    zr[i, b] = qr[i, b]
+                    zi[i, b] = qi[i, b]
+                    sc[b] = max(sc[b], abs(qr[i, b]), abs(qi[i, b]))
+                    last[i, b] = np.inf
+                    dr[i, b] = math.nan
+                    di[i, b] = math.nan
+            for b in range(L):
+                sc[b] = (sc[b] if sc[b] > 0.0 else 1.0) * newton_rtol
+            if first_steps >= 1:
+                _block_newton(P, zr, zi, dr, di, ar, hr, hi, L)
+                _fix_quotients(P, Pl, zr, zi, dr, di, ar, ok, L, True)
+            if first_steps >= 2:
                 for i in range(n):
-                    zr[i] = qr[i]
-                    zi[i] = qi[i]
-                    sc = max(sc, abs(qr[i]), abs(qi[i]))
-                    last[i] = np.inf
-                    dr[i] = math.nan
-                    di[i] = math.nan
-                if sc == 0.0:
-                    sc = 1.0
-                sc *= newton_rtol
-                done = False
-                it = 0
-                while it < newton_maxit:
+                    for b in range(L):
+                        last[i, b] = ar[i, b]
+                # the check step: P' barely moves over a converging first step, so the
+                # first step's derivative serves; a poor first step shows as a step
+                # that does not contract, and full steps follow
+                _block_check(P, zr, zi, dr, di, ar, hr, hi, L)
+                _fix_quotients(P, Pl, zr, zi, dr, di, ar, ok, L, False)
+            for b in range(L):
+                done[b] = ok[b] and first_steps > 0
+            for i in range(n):
+                for b in range(L):
+                    a = ar[i, b]
+                    r = a / last[i, b]
+                    c_ok = a <= sc[b] or (_is_finite(last[i, b]) and r < 0.5
+                                          and a * r <= sc[b] * (1.0 - r))
+                    if not (c_ok and _is_finite(zr[i, b]) and _is_finite(zi[i, b])):
+                        done[b] = False
+            for b in range(L):
+                if not ok[b]:
+                    continue
+                stats[ST_NEWTON_ITERATIONS] += first_steps
+                if done[b]:
+                    continue
+                # this variant needs more: full Newton steps, one variant at a time
+                for j in range(w):
+                    Pl[j] = P[j, b]
+                it = first_steps
+                fin = True
+                for i in range(n):
+                    if not (_is_finite(zr[i, b]) and _is_finite(zi[i, b])):
+                        fin = False
+                while fin and it < newton_maxit:
                     it += 1
                     stats[ST_NEWTON_ITERATIONS] += 1
-                    _newton_step(P, zr, zi, dr, di, ar, hr, hi)
-                    fin = True
+                    for i in range(n):
+                        last[i, b] = ar[i, b]
+                    _lane_newton(Pl, zr, zi, dr, di, ar, b, True)
                     allc = True
                     for i in range(n):
-                        a = ar[i]
-                        r = a / last[i]
-                        if not (a <= sc or (math.isfinite(last[i]) and r < 0.5 and a * r <= sc * (1.0 - r))):
+                        a = ar[i, b]
+                        r = a / last[i, b]
+                        if not (a <= sc[b] or (_is_finite(last[i, b]) and r < 0.5
+                                               and a * r <= sc[b] * (1.0 - r))):
                             allc = False
-                        last[i] = a
-                        if not (math.isfinite(zr[i]) and math.isfinite(zi[i])):
+                        if not (_is_finite(zr[i, b]) and _is_finite(zi[i, b])):
                             fin = False
-                    # at least two steps: the second one measures the first one's error
-                    if it >= 2 or newton_maxit < 2:
-                        if not fin:
-                            break
-                        if allc:
-                            done = True
-                            break
-                if not done:
+                    if fin and allc and (it >= 2 or newton_maxit < 2):
+                        done[b] = True
+                        break
+                if not done[b]:
                     # a residual already at the rounding level of the evaluation cannot improve
                     at_noise = True
                     for i in range(n):
-                        zz = complex(zr[i], zi[i])
-                        if not _finite(zz):
+                        x = complex(zr[i, b], zi[i, b])
+                        if not (_is_finite(x.real) and _is_finite(x.imag)):
                             at_noise = False
                             break
-                        pz = _horner(P, zz)
-                        az = abs(zz)
+                        px = _horner(Pl, x)
+                        ax = abs(x)
                         noise = 0.0
                         for j in range(w):
-                            noise = noise * az + abs(P[j])
-                        if abs(pz) > 64.0 * eps * noise:
+                            noise = noise * ax + abs(Pl[j])
+                        if abs(px) > 64.0 * eps * noise:
                             at_noise = False
                             break
-                    done = at_noise
-                if not done:
+                    done[b] = at_noise
+                if not done[b]:
                     stats[ST_NOT_CONVERGED] += 1
-                else:
-                    good = True
-                    if n > 1:
-                        # every correction under `dominance` of the distance from its
-                        # prediction to the nearest other prediction
-                        for i in range(n):
-                            sep2 = np.inf
-                            for j in range(n):
-                                if j != i:
-                                    xr = qr[i] - qr[j]
-                                    xi = qi[i] - qi[j]
-                                    sep2 = min(sep2, xr * xr + xi * xi)
-                            xr = zr[i] - qr[i]
-                            xi = zi[i] - qi[i]
-                            if not (xr * xr + xi * xi < d3 * sep2):
-                                good = False
-                                break
-                        if not good:
-                            stats[ST_NOT_SEPARATED] += 1
-            if good:
+            # -- separation: each correction under `dominance` of the distance from its
+            # prediction to the nearest other prediction
+            for b in range(L):
+                good[b] = done[b]
+            if n > 1:
                 for i in range(n):
-                    z[i] = complex(zr[i], zi[i])
-            else:
+                    for b in range(L):
+                        near2[i, b] = np.inf
+                for i in range(n):
+                    for j in range(i + 1, n):
+                        for b in range(L):
+                            xr = qr[i, b] - qr[j, b]
+                            xi = qi[i, b] - qi[j, b]
+                            d2 = xr * xr + xi * xi
+                            near2[i, b] = min(near2[i, b], d2)
+                            near2[j, b] = min(near2[j, b], d2)
+                for b in range(L):
+                    flag[b] = False  # some root of b is not separated
+                for i in range(n):
+                    for b in range(L):
+                        xr = zr[i, b] - qr[i, b]
+                        xi = zi[i, b] - qi[i, b]
+                        if not (xr * xr + xi * xi < d3 * near2[i, b]):
+                            flag[b] = True
+                for b in range(L):
+                    if done[b] and flag[b]:
+                        good[b] = False
+                        stats[ST_NOT_SEPARATED] += 1
+            # -- the eigenvalue fall-back, variant by variant
+            for b in range(L):
+                if good[b] or failed[b]:
+                    continue
                 stats[ST_FALLBACK] += 1
+                for j in range(w):
+                    Pl[j] = P[j, b]
+                nz = 0
+                while nz < w and abs(Pl[nz]) <= 16.0 * eps * (abs(Dt[nz, b]) + abs(k * Nt[nz, b])):
+                    nz += 1
                 for i in range(n):
-                    pred[i] = complex(qr[i], qi[i])
-                    prev[i] = complex(p1r[i], p1i[i])
-                if not _fallback_step(P, nz, pred, prev, z, roots, cost, perm, work, wr, wi,
+                    pred[i] = complex(qr[i, b], qi[i, b])
+                    prev[i] = complex(p1r[i, b], p1i[i, b])
+                if not _fallback_step(Pl, min(nz, n), pred, prev, zc, roots, cost, perm, work, wr, wi,
                                       u, vv, pp, way, minv, used, qr_max_its):
-                    failed = True
-                    break
+                    failed[b] = True
+                    status[start + b] = 0
+                    continue
                 for i in range(n):
-                    dr[i] = math.nan
-                    di[i] = math.nan
-            # -- velocity ds/dk = -sigma N(s) / P'(s); the last Newton derivative is P'
-            # at the root to first order, enough for a predictor
-            vel_ok = True
+                    zr[i, b] = zc[i].real
+                    zi[i, b] = zc[i].imag
+                    dr[i, b] = math.nan
+                    di[i, b] = math.nan
+            # -- velocity ds/dk = -sigma N(s) / P'(s); the first Newton step's P' is the
+            # derivative at the root to first order, enough for a predictor
+            for b in range(L):
+                flag[b] = False
             for i in range(n):
-                # N(z) by Horner in real arithmetic, then -sigma N / P' (plain formula;
-                # any overflow shows as a non-finite result and takes the exact path below)
-                xr = zr[i] if good else z[i].real
-                xi = zi[i] if good else z[i].imag
-                nr = Nv[0]
-                ni = 0.0
+                for b in range(L):
+                    hr[b] = Nt[0, b]
+                    hi[b] = 0.0
                 for j in range(1, w):
-                    tr = nr * xr - ni * xi + Nv[j]
-                    ni = nr * xi + ni * xr
-                    nr = tr
-                den = dr[i] * dr[i] + di[i] * di[i]
-                a = -sg * (nr * dr[i] + ni * di[i]) / den
-                b = -sg * (ni * dr[i] - nr * di[i]) / den
-                vr[i] = a
-                vi[i] = b
-                if not (math.isfinite(a) and math.isfinite(b) and den > 1e-280 and den < 1e280):
-                    vel_ok = False
-            if not vel_ok:
-                for i in range(n):
-                    _, dpz = _horner_pd(P, z[i])
-                    x = -sg * _horner(Nv, z[i]) / dpz
-                    if not _finite(x):
-                        x = _NAN
-                    vr[i] = x.real
-                    vi[i] = x.imag
-            _record(v, gi, z, kr, op_index, out_kept, out_op, abscissa)
-            for i in range(n):
-                p2r[i] = p1r[i]
-                p2i[i] = p1i[i]
-                p1r[i] = z[i].real
-                p1i[i] = z[i].imag
+                    for b in range(L):
+                        xr = zr[i, b]
+                        xi = zi[i, b]
+                        tr = hr[b] * xr - hi[b] * xi + Nt[j, b]
+                        hi[b] = hr[b] * xi + hi[b] * xr
+                        hr[b] = tr
+                for b in range(L):
+                    den = dr[i, b] * dr[i, b] + di[i, b] * di[i, b]
+                    x = -sg * (hr[b] * dr[i, b] + hi[b] * di[i, b]) / den
+                    y = -sg * (hi[b] * dr[i, b] - hr[b] * di[i, b]) / den
+                    vr[i, b] = x
+                    vi[i, b] = y
+                    if not (_is_finite(x) and _is_finite(y) and den > 1e-280 and den < 1e280):
+                        flag[b] = True
+            for b in range(L):
+                if flag[b] and not failed[b]:
+                    # exact P' at the roots (after a fall-back, or where the quick form failed)
+                    for j in range(w):
+                        Pl[j] = P[j, b]
+                    for i in range(n):
+                        x = complex(zr[i, b], zi[i, b])
+                        _, dpx = _horner_pd(Pl, x)
+                        nx = complex(Nt[0, b])
+                        for j in range(1, w):
+                            nx = nx * x + Nt[j, b]
+                        y = -sg * nx / dpx
+                        if not (_is_finite(y.real) and _is_finite(y.imag)):
+                            y = _NAN
+                        vr[i, b] = y.real
+                        vi[i, b] = y.imag
+            _block_record(start, L, gi, zr, zi, keep_row, op_index, out_kept, out_op, abscissa)
+            # -- shift the state: the new roots become the previous ones
+            p2r, p1r, zr = p1r, zr, p2r
+            p2i, p1i, zi = p1i, zi, p2i
             k2 = k1
             k1 = k
-        status[v] = 0 if failed else 1
+        for b in range(L):
+            if not failed[b]:
+                status[start + b] = 1
 
 
-@njit(cache=True, error_model="numpy", inline="always")
-def _record(v, gi, z, kr, op_index, out_kept, out_op, abscissa) -> None:
-    n = z.shape[0]
-    if kr >= 0:
+@njit(cache=True, error_model="numpy")
+def _fix_quotients(P, Pl, zr, zi, dr, di, ar, ok, L: int, full: bool) -> None:
+    """Redo, variant by variant, a block step left undone (NaN step size) by an out-of-range quotient.
+
+    The scalar step divides with scaling, as `_newton_quotient` does.
+    """
+    n = zr.shape[0]
+    w = P.shape[0]
+    for b in range(L):
+        if not ok[b]:
+            continue
+        bad = False
         for i in range(n):
-            out_kept[kr, gi, i] = z[i]
-    if gi == op_index:
+            if math.isnan(ar[i, b]):
+                bad = True
+        if not bad:
+            continue
+        for j in range(w):
+            Pl[j] = P[j, b]
+        _lane_newton(Pl, zr, zi, dr, di, ar, b, full)
+
+
+@njit(cache=True, error_model="numpy")
+def _block_record(start, L, gi, zr, zi, keep_row, op_index, out_kept, out_op, abscissa) -> None:
+    """Store the roots at grid gain ``gi`` where asked, and every variant's spectral abscissa."""
+    n = zr.shape[0]
+    for b in range(L):
+        v = start + b
+        kr = keep_row[v]
+        if kr >= 0:
+            for i in range(n):
+                out_kept[kr, gi, i] = complex(zr[i, b], zi[i, b])
+        if gi == op_index:
+            for i in range(n):
+                out_op[v, i] = complex(zr[i, b], zi[i, b])
+        m = -np.inf
+        any_finite = False
         for i in range(n):
-            out_op[v, i] = z[i]
-    m = -np.inf
-    any_finite = False
-    for i in range(n):
-        re = z[i].real
-        if not math.isnan(re):
-            any_finite = True
-            if re > m:
-                m = re
-    abscissa[v, gi] = m if any_finite else np.nan
+            x = zr[i, b]
+            if not math.isnan(x):
+                any_finite = True
+                if x > m:
+                    m = x
+        abscissa[v, gi] = m if any_finite else np.nan
