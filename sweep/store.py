@@ -19,7 +19,9 @@ kept loci of those variants (dimension ``locus_variant``, possibly empty),
 the ``gain`` grid, and the chunk's spectral-abscissa envelope as
 ``envelope_min``, ``envelope_max``, ``envelope_sum``, ``envelope_count``
 (along ``gain``). Global attributes ``config_sha256``, ``variant_start``,
-``variant_stop`` tie it to one config and one variant range. Parts are not
+``variant_stop`` tie it to one config and one variant range. On disk a
+part groups its variables into blocks (see `write_part`): a part is a
+temporary file read back only by `read_part`. Parts are not
 compressed, not even the kept loci: they live only until the merge, and
 compressing them would cost more than computing them (zlib on a chunk of
 4096 kept loci of 200 gains x 6 branches: about 1.3 s against 0.04 s to
@@ -35,6 +37,7 @@ the memory does not grow with the number of variants.
 """
 from __future__ import annotations
 
+import json
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -190,8 +193,21 @@ def _put(v: netCDF4.Variable, values: np.ndarray, index=Ellipsis) -> None:
     v[index] = values.astype(object) if values.dtype.kind == "U" else values
 
 
+_LAYOUT_ATTR = "part_layout"  # global attribute of a part file: how its variables are stored (JSON)
+
+
 def write_part(part: Part, path: str | os.PathLike) -> Path:
     """Write one chunk's results atomically.
+
+    Variables with the same dimensions and type are stored together as one
+    block (a netCDF variable with a leading ``block<k>_member`` dimension),
+    the dimension coordinates and text variables on their own; the global
+    attribute ``part_layout`` (JSON) names every block's members with their
+    dimensions and attributes. A part holds some 45 variables and each
+    netCDF variable costs about as much to write as a block of ten, so
+    this makes a part several times cheaper to write and read; only
+    `read_part` needs to know the layout, and the result keeps the layout
+    of DESIGN section 4.
 
     Parameters
     ----------
@@ -208,20 +224,37 @@ def write_part(part: Part, path: str | os.PathLike) -> Path:
     path = Path(path)
     tmp = _tmp_name(path)
     sizes = part.sizes
-    aux = " ".join(part.aux_coords())
+    layout: dict[str, Any] = {
+        "order": list(part.variables), "coords": list(part.coords),
+        "dims": {n: list(v.dims) for n, v in part.variables.items()},
+        "attrs": {n: dict(v.attrs) for n, v in part.variables.items()},
+        "blocks": {},
+    }
+    groups: dict[tuple, list[str]] = {}
+    alone: list[str] = []
+    for name, var in part.variables.items():
+        values = np.asarray(var.values)
+        if values.dtype.kind in "UO" or var.dims == (name,):
+            alone.append(name)  # text, and the dimension coordinates (found by name, e.g. by merge_parts)
+        else:
+            groups.setdefault((var.dims, values.dtype.str), []).append(name)
     try:
         with netCDF4.Dataset(tmp, "w", format="NETCDF4") as nc:
             for dim, n in sizes.items():
                 nc.createDimension(dim, n)  # a size of 0 becomes unlimited: still reads as empty
-            for name, var in part.variables.items():
-                kind = _nc_kind(var.values)
-                v = nc.createVariable(name, kind, var.dims, fill_value=None if kind is str else False)
-                attrs = dict(var.attrs)
-                if aux and name not in part.coords and "variant" in var.dims:
-                    attrs["coordinates"] = aux  # what xarray reads back as coordinates
-                v.setncatts(attrs)
-                _put(v, np.asarray(var.values))
-            nc.setncatts(dict(part.attrs))
+            for name in alone:
+                values = np.asarray(part.variables[name].values)
+                kind = _nc_kind(values)
+                v = nc.createVariable(name, kind, part.variables[name].dims,
+                                      fill_value=None if kind is str else False)
+                _put(v, values)
+            for k, ((dims, dtype), names) in enumerate(groups.items()):
+                block, member = f"block{k}", f"block{k}_member"
+                nc.createDimension(member, len(names))
+                v = nc.createVariable(block, np.dtype(dtype), (member, *dims), fill_value=False)
+                _put(v, np.stack([np.asarray(part.variables[n].values) for n in names]))
+                layout["blocks"][block] = names
+            nc.setncatts({**part.attrs, _LAYOUT_ATTR: json.dumps(layout)})
         _publish(tmp, path)
     finally:
         if tmp.exists():
@@ -273,20 +306,23 @@ def read_part(
             nc.set_auto_maskandscale(False)
             attrs = {k: _plain(nc.getncattr(k)) for k in nc.ncattrs()}
             _check_attrs(path, attrs, config_sha256, start, stop)
-            coords = [n for n in nc.variables if n in nc.dimensions]
-            variables: dict[str, Var] = {}
+            layout = json.loads(attrs.pop(_LAYOUT_ATTR))
+            values: dict[str, np.ndarray] = {}
             for name, v in nc.variables.items():
-                va = {k: _plain(v.getncattr(k)) for k in v.ncattrs()}
-                for c in str(va.pop("coordinates", "")).split():
-                    if c not in coords:
-                        coords.append(c)
-                va = {k: x for k, x in va.items() if not k.startswith("_")}
-                variables[name] = Var(tuple(v.dimensions), np.asarray(v[...]), va)
+                data = np.asarray(v[...])
+                if name in layout["blocks"]:
+                    values.update(zip(layout["blocks"][name], data))
+                else:
+                    values[name] = data
+            variables = {
+                n: Var(tuple(layout["dims"][n]), values[n], dict(layout["attrs"][n])) for n in layout["order"]
+            }
+            part = Part(variables, tuple(layout["coords"]), attrs)
+            part.sizes  # noqa: B018  (dimension lengths agree)
     except PartError:
         raise
     except Exception as err:  # any failure to read means "compute it again"
         raise PartError(f"{path.name}: unreadable ({type(err).__name__}: {err})") from None
-    part = Part(variables, tuple(c for c in variables if c in coords), attrs)
     p_start, p_stop = int(attrs["variant_start"]), int(attrs["variant_stop"])
     if "variant" not in part or not np.array_equal(part["variant"], np.arange(p_start, p_stop)):
         raise PartError(f"{path.name}: variant coordinate does not match its range")
