@@ -511,3 +511,104 @@ def test_tangent_touch_is_flagged():
     assert a.ill_conditioned
     assert a.critical_gain == pytest.approx(1.0, rel=1e-6)
     assert a.crossing_frequency == pytest.approx(math.sqrt(2), rel=1e-6)
+
+
+# ---------------------------------------------------------------------------
+# the compiled kernel against the numpy formulation it replaced, and its paths
+
+def _random_coeff_stack(seed, V, n, m):
+    rng = np.random.default_rng(seed)
+    D = rng.normal(size=(V, n + 1))
+    D[:, 0] = np.where(np.abs(D[:, 0]) < 0.1, 1.0, D[:, 0])
+    N = rng.normal(size=(V, m + 1))
+    return N, D
+
+
+def _assert_same_meaning(a, b, rtol=1e-8):
+    for k in a:
+        x, y = a[k], b[k]
+        if x.dtype == np.int8:
+            np.testing.assert_array_equal(x, y, err_msg=k)
+        else:
+            np.testing.assert_allclose(x, y, rtol=rtol, atol=1e-12, equal_nan=True, err_msg=k)
+
+
+@pytest.mark.parametrize("n,m", [(1, 0), (1, 1), (2, 1), (2, 2), (3, 0), (4, 2), (5, 5), (7, 3), (12, 5)])
+def test_kernel_matches_numpy_reference(n, m):
+    # reference: the vectorised numpy formulation the compiled kernel replaced
+    # (tests/analysis_reference.py), on random loops of every kind
+    from analysis_reference import analyze_stack_reference
+
+    N, D = _random_coeff_stack(100 * n + m, 400, n, m)
+    for kw in (dict(sigma=1, gain_range=(-2.0, 50.0), operating_gain=0.3, full_check=True),
+               dict(sigma=-1, gain_range=(0.0, INF), operating_gain=1.5),
+               dict(sigma=1, gain_range=(0.0, INF))):
+        a = analyze_stack_reference(N, D, **kw)
+        b = analyze_stack(N, D, **kw)
+        if kw.get("operating_gain") is None:
+            # the reference left imaginary parts 0 (not NaN) without an operating gain
+            assert np.all(np.isnan(b["closed_loop_pole_imag"]))
+            b = dict(b, closed_loop_pole_imag=a["closed_loop_pole_imag"])
+        _assert_same_meaning(a, b)
+
+
+@pytest.mark.parametrize("op,full", [(0.5, False), (None, False), (0.5, True), (None, True)])
+def test_staged_path_equals_fused_kernel_bitwise(op, full):
+    # the staged path (used for rows whose QR fails) runs the same per-variant code
+    from sweep import analysis
+
+    N, D = _random_coeff_stack(7, 300, 6, 2)
+    fused = analyze_stack(N, D, sigma=1, operating_gain=op, full_check=full)
+    staged = analysis._analyze_staged(N, D, 1.0, 0.0, INF, math.nan if op is None else op,
+                                      op is not None, full, None, None).as_dict()
+    for k in fused:
+        np.testing.assert_array_equal(fused[k], staged[k], err_msg=k)
+
+
+@pytest.mark.parametrize("its", [0, 2])
+def test_rows_whose_qr_fails_are_redone_with_lapack(monkeypatch, its):
+    # with no (or too few) QR iterations allowed, every (or some) row goes to the
+    # staged path and LAPACK; the results keep their meaning
+    from sweep import analysis
+
+    N, D = _random_stack(4, 60, n=6, m=2)
+    normal = analyze_stack(N, D, sigma=1, operating_gain=0.4, full_check=True)
+    monkeypatch.setattr(analysis, "_QR_ITERATIONS", its)
+    cut = analyze_stack(N, D, sigma=1, operating_gain=0.4, full_check=True)
+    # another backward-stable eigensolver: clustered poles move in the 9th digit
+    _assert_same_meaning(normal, cut, rtol=1e-7)
+    noop = analyze_stack(N, D, sigma=1)
+    assert np.all(noop["routh_agrees"] == 1)
+
+
+def test_compiled_routh_count_equals_numpy_routh():
+    # the kernel's Routh count follows sweep.routh exactly, special rules included
+    from sweep import _analysis_kernel as kernel
+    from sweep.routh import routh_rhp_count
+
+    rng = np.random.default_rng(5)
+    polys = [np.array(p, float) for p in (
+        [1, 2, 2, 4, 11, 10], [1, 1, 2, 2, 3], [1, 1, 4, 4], np.polymul([1, 7], [1, 0, 6, 0, 8]),
+        np.polymul([1, 0, 0, -1], [1, 1]), [1, 0, 0, 0], [1, 0, 1], [2, 0, -3, 0, 1], [1, 3, 3, 1])]
+    for d in range(1, 10):
+        polys += list(rng.normal(size=(40, d + 1)))
+        polys += list(np.round(rng.normal(size=(40, d + 1))))   # exact zeros and ties
+    for p in polys:
+        if p[0] == 0:
+            continue
+        w = p.size // 2 + 1
+        c, z, e = kernel.routh_count(p, np.empty(w), np.empty(w), np.empty(w))
+        c2, z2, e2 = routh_rhp_count(p[None, :], return_flags=True)
+        assert (c, z, e) == (c2[0], z2[0], e2[0]), p
+
+
+def test_operating_gain_sending_a_root_to_infinity():
+    # (s^2 - s - 1)/(s^2 + 3s + 2), positive feedback, k = 1: P = 4s + 3 has lost its
+    # s^2 term; one closed-loop pole is at infinity (NaN), the other at -3/4 (hand
+    # computation). The operating gain is the boundary gain itself: not stable.
+    a = analyze([1, -1, -1], [1, 3, 2], feedback="positive", operating_gain=1.0)
+    assert a.boundary_gains == [1.0] and a.boundary_frequencies == [INF]
+    assert not a.stable_at_reference and math.isnan(a.critical_gain)
+    cl = np.array(a.closed_loop_poles)
+    assert np.sum(np.isnan(cl.real)) == 1
+    assert cl[~np.isnan(cl.real)][0] == pytest.approx(-0.75)
