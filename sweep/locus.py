@@ -826,7 +826,8 @@ def kept_indices(total: int, keep: str, keep_count: int | None = None, seed: int
         ``(seed, total, N)`` only, never on chunking.
     design_labels
         ``(total,)`` design names; ``corners`` keeps the variants labelled
-        ``"corners"`` and those labelled ``"nominal"``.
+        ``"corners"`` and those labelled ``"nominal"``; with ``random`` the
+        variants labelled ``"nominal"`` are kept besides the ``N`` drawn.
     """
     kind, cnt = parse_keep(keep, keep_count)
     total = int(total)
@@ -841,6 +842,9 @@ def kept_indices(total: int, keep: str, keep_count: int | None = None, seed: int
         return np.flatnonzero((lab == "corners") | (lab == "nominal")).astype(np.int64)
     rng = np.random.default_rng([int(seed), 0x6B656570])  # own stream, apart from the sampling
     pick = rng.choice(total, size=min(cnt, total), replace=False)
+    if design_labels is not None:
+        # the nominal's locus is the reference every plot draws in bold: always keep it
+        pick = np.union1d(pick, np.flatnonzero(np.asarray(design_labels).astype(str) == "nominal"))
     return np.sort(pick).astype(np.int64)
 
 
@@ -876,4 +880,7 @@ def select_kept(design_labels, variant_index, keep: str, keep_count: int | None 
         if total is None:
             raise ValueError("keep = random:N needs the total variant count (or kept=)")
         kept = kept_indices(total, "random", cnt, seed)
-    return np.isin(idx, kept)
+    mask = np.isin(idx, kept)
+    if design_labels is not None:
+        mask |= np.asarray(design_labels).astype(str) == "nominal"
+    return mask

@@ -521,6 +521,13 @@ def test_kept_indices_random_independent_of_chunking():
     assert np.array_equal(np.flatnonzero(np.concatenate(masks)), kept)
     assert kept_indices(10, "random:50", seed=1).size == 10
     assert not np.array_equal(kept, kept_indices(total, "random:25", seed=5))
+    # the nominal (variant 0 here) is kept besides the 25 drawn
+    labels = np.array(["nominal"] + ["lhs"] * (total - 1))
+    with_nominal = kept_indices(total, "random:25", seed=4, design_labels=labels)
+    assert np.array_equal(with_nominal, np.union1d(kept, [0]))
+    masks = [select_kept(labels[a:a + 64], np.arange(a, min(a + 64, total)), "random:25", seed=4,
+                         total=total) for a in range(0, total, 64)]
+    assert np.array_equal(np.flatnonzero(np.concatenate(masks)), with_nominal)
 
 
 def test_kept_indices_other_kinds():
