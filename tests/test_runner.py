@@ -408,19 +408,42 @@ def test_complete_output_returned(tmp_path):
 
 
 @pytest.mark.slow
-def test_joblib_two_jobs_identical(tmp_path, reference):
+@pytest.mark.parametrize("method", ["fork", "loky"])
+@pytest.mark.parametrize("jobs", [2, 3])
+def test_joblib_jobs_identical(tmp_path, reference, monkeypatch, method, jobs):
+    """Forked workers and fresh-interpreter workers give the in-process result exactly."""
+    monkeypatch.setattr(runner, "_START_METHOD", method)
     cfg = load_config(write_config(tmp_path))
-    out = runner.run(cfg, out=tmp_path / "j.nc", jobs=2, quiet=True)
+    out = runner.run(cfg, out=tmp_path / "j.nc", jobs=jobs, quiet=True)
     xr.testing.assert_identical(load(out), reference)
+    log = (tmp_path / "j.nc.log").read_text()
+    assert f"{jobs - 1} local worker(s) started ({method})" in log
+
+
+def test_start_method_rule(monkeypatch):
+    import threading
+
+    monkeypatch.setattr(runner, "_START_METHOD", None)
+    monkeypatch.setattr(runner.sys, "platform", "linux")
+    monkeypatch.setattr(threading, "active_count", lambda: 1)
+    assert runner._start_method() == "fork"
+    monkeypatch.setattr(threading, "active_count", lambda: 3)  # e.g. a Dask client in this process
+    assert runner._start_method() == "loky"
+    monkeypatch.setattr(threading, "active_count", lambda: 1)
+    monkeypatch.setattr(runner.sys, "platform", "darwin")
+    assert runner._start_method() == "loky"
 
 
 @pytest.mark.slow
-def test_joblib_worker_exception_reraised(tmp_path, monkeypatch):
+@pytest.mark.parametrize("method", ["fork", "loky"])
+def test_joblib_worker_exception_reraised(tmp_path, monkeypatch, method):
+    monkeypatch.setattr(runner, "_START_METHOD", method)
     cfg = load_config(write_config(tmp_path))
     real = runner.compute_chunk
+    here = os.getpid()
 
     def failing(config, variants, gains, kept):  # a closure: joblib ships it by value
-        if variants.start == 10:
+        if os.getpid() != here:  # only in the worker (this process computes chunks too)
             raise ZeroDivisionError("chunk failed on purpose")
         return real(config, variants, gains, kept)
 
@@ -428,7 +451,11 @@ def test_joblib_worker_exception_reraised(tmp_path, monkeypatch):
     with pytest.raises(ZeroDivisionError, match="on purpose"):
         runner.run(cfg, out=tmp_path / "jw.nc", jobs=2, quiet=True)
     assert not (tmp_path / "jw.nc.lock").exists() and not (tmp_path / "jw.nc").exists()
-    assert "failed: ZeroDivisionError" in (tmp_path / "jw.nc.log").read_text()
+    log = (tmp_path / "jw.nc.log").read_text()
+    assert "failed: ZeroDivisionError" in log
+    # the chunks this process finished before the failure came back are kept
+    kept = sorted(p.name for p in (tmp_path / "jw.nc.parts").glob("chunk-*.nc"))
+    assert kept and all(f"chunk {int(n[6:11])} variants" in log for n in kept)
 
 
 def test_parameter_name_clash_refused(tmp_path):
