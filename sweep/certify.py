@@ -14,8 +14,17 @@ Two routes (DESIGN.md section 8):
   sub-box the coefficients are enclosed by interval arithmetic; Kharitonov on
   the enclosure is a sufficient test, so the smallest pencil critical gain is
   a guaranteed *lower* bound for every point of the sub-box.  Critical gains
-  of actual points give *upper* bounds.  Boxes are split until
-  ``upper - lower <= rtol * upper`` or the budget runs out.
+  of actual points give *upper* bounds.  The box with the smallest bound is
+  split (64 at a time) along the side with the largest first-order effect on
+  the bound (`_split_weights`) until ``upper - lower <= rtol * upper`` or the
+  budget runs out.
+
+Before either route, the leading coefficient of ``P`` at the reference gain
+is evaluated at the centre and corners of the box: a sign change there is a
+root through infinity at the reference gain (degree invariance fails), which
+is reported with the place where the coefficient vanishes.  After either
+route, the worst point is re-analysed by `sweep.analysis` (the routine the
+sweep itself uses), so ``upper`` is the critical gain of an actual variant.
 
 Conventions: polynomials are stacks, highest power of ``s`` first; the
 Kharitonov patterns run by power from the constant term up, so they are
@@ -31,8 +40,9 @@ Soundness caveats (what "guaranteed" rests on):
   power-of-two scaling), so a pencil's critical gain carries the usual
   relative rounding error of a root computation, not a rigorous enclosure.
   Double real roots of the crossing polynomial are accepted as real up to a
-  relative imaginary part of 1e-6; higher-multiplicity tangencies could be
-  missed.
+  relative imaginary part of 1e-6, and for the pencils (lower bounds) up to
+  1e-4, so that a crossing the solver blurs into a complex pair still counts;
+  higher-multiplicity tangencies could be missed.
 * A coefficient enclosed within +-1e-300 over the whole box is taken as
   exactly zero (a literal 0 such as an integrator's ``D(0)``; outward rounding
   would otherwise make the family look unstable just above ``k = 0``).
@@ -80,6 +90,9 @@ _PATTERN = np.array(
 
 # Box status codes of `kharitonov_lower_bound`.
 OK, UNSTABLE_AT_REFERENCE, DEGREE_FAILS = 0, 1, 2
+
+_TINY = 1e-300  # a coefficient enclosed within +-_TINY over the whole box is a structural zero
+_PROBE = 16  # children proven stable at the reference whose midpoints are evaluated per iteration
 
 
 # ---------------------------------------------------------------------------
@@ -170,6 +183,11 @@ def kharitonov_pencils(
 
 
 _REAL_RTOL = 1e-6  # |Im| / |z| below which a computed root of the crossing polynomial counts as real
+# Pencils (lower bounds) also take roots up to this relative imaginary part: two nearby real roots
+# (the locus dips just across the axis and back) can come out of the eigenvalue solver as a complex
+# pair, and an extra candidate gain can only lower the bound, never make it wrong.
+_SUSPECT_RTOL = 1e-4
+_ON_BOUNDARY_RTOL = 1e-10  # an operating gain this close to a boundary gain sits on the axis (as analysis)
 
 
 def _pow2(x: np.ndarray) -> np.ndarray:
@@ -178,40 +196,32 @@ def _pow2(x: np.ndarray) -> np.ndarray:
 
 
 def _roots_stacked(c: np.ndarray, return_bad: bool = False):
-    """Roots of a stack of polynomials ``(V, d+1)`` via stacked companion matrices.
+    """Roots of a stack of polynomials ``(V, d+1)``: eigenvalues of the balanced companion matrices.
 
-    Rows whose leading coefficients are exactly zero are handled by grouping
-    rows of equal effective degree (a loop over degrees, not over rows).
-    Returns complex ``(V, d)``, NaN-padded.
+    Leading coefficients that are exactly zero lower a row's degree.  Rows
+    whose monic coefficients overflow (or hold NaN) cannot be solved: they
+    keep NaN roots and are flagged ``bad`` (callers treat them as unknown).
+    Returns complex ``(V, d)``, each row's roots first, NaN-padded.  The
+    compiled QR iteration of `sweep.rootfind` does the work (LAPACK where it
+    does not converge).
     """
+    from sweep.rootfind import poly_roots
+
     V, w = c.shape
     d = w - 1
     out = np.full((V, max(d, 0)), np.nan + 0j)
     bad = np.zeros(V, dtype=bool)
-    if d <= 0:
+    if d <= 0 or V == 0:
         return (out, bad) if return_bad else out
     nz = c != 0
     first = np.where(nz.any(axis=1), nz.argmax(axis=1), w)  # index of leading nonzero
-    for f in np.unique(first):
-        deg = d - f
-        if deg <= 0:
-            continue
-        rows = np.nonzero(first == f)[0]
-        with np.errstate(over="ignore", invalid="ignore"):
-            cc = c[rows, f:] / c[rows, f : f + 1]
-        finite = np.all(np.isfinite(cc), axis=1)
-        if not finite.all():
-            # unresolvable rows keep NaN roots and are flagged (callers treat them as unknown)
-            bad[rows[~finite]] = True
-            rows, cc = rows[finite], cc[finite]
-            if rows.size == 0:
-                continue
-        comp = np.zeros((rows.size, deg, deg))
-        comp[:, 0, :] = -cc[:, 1:]
-        if deg > 1:
-            idx = np.arange(deg - 1)
-            comp[:, idx + 1, idx] = 1.0
-        out[rows, :deg] = np.linalg.eigvals(comp)
+    lead = c[np.arange(V), np.minimum(first, d)]
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        finite = np.all(np.isfinite(c / np.where(lead != 0, lead, 1.0)[:, None]), axis=1)
+    bad = ~finite & (first < d)
+    rows = np.flatnonzero(finite & (first < d))
+    if rows.size:
+        out[rows] = poly_roots(c[rows], d - first[rows])
     return (out, bad) if return_bad else out
 
 
@@ -271,6 +281,7 @@ def _critical_gains_direct(
     sigma: int,
     gain_range: tuple[float, float],
     reference: float,
+    conservative: bool = False,
 ) -> np.ndarray:
     """Critical gains of ``D + sigma k N`` for a stack (lean stand-in for `analysis`).
 
@@ -280,7 +291,10 @@ def _critical_gains_direct(
     interval that holds the reference is tested at its midpoint (no boundary
     lies inside it, so one point decides).  Returns ``(V,)``: ``inf`` when no
     boundary gain lies above the reference inside the range, NaN when the
-    reference gain is unstable.
+    reference gain is unstable.  A reference above the range's lower end
+    (an operating gain) within ``1e-10`` of a boundary gain is on the axis:
+    NaN, as in `sweep.analysis`.  ``conservative`` (for lower bounds) also
+    takes nearly real roots of ``Q`` as crossings (see `_SUSPECT_RTOL`).
     """
     D = np.asarray(D, dtype=float)
     Bp = sigma * _pad_front(np.asarray(N, dtype=float), D.shape[1])
@@ -323,7 +337,7 @@ def _critical_gains_direct(
         if Q.shape[1] > 1:
             x, unresolved = _roots_stacked(Q, return_bad=True)
             xr = x.real
-            real = (np.abs(x.imag) <= _REAL_RTOL * np.abs(x)) & (xr > 0)
+            real = (np.abs(x.imag) <= (_SUSPECT_RTOL if conservative else _REAL_RTOL) * np.abs(x)) & (xr > 0)
             xr = np.where(real, xr, np.nan)
             w = np.sqrt(xr)
             jw = 1j * w
@@ -335,6 +349,9 @@ def _critical_gains_direct(
             cands.append(k)
     C = np.concatenate(cands, axis=1)
     C = np.where((C > lo_s[:, None]) & (C < hi_s[:, None]) & np.isfinite(C), C, np.nan)
+    if reference > gain_range[0]:
+        on_axis = np.any(np.abs(C - ref_s[:, None]) <= _ON_BOUNDARY_RTOL * ref_s[:, None], axis=1)
+        unresolved = unresolved | on_axis  # marginal at the operating gain: not stable there
     above = np.where(C > ref_s[:, None], C, np.inf).min(axis=1)
     below = np.where(C <= ref_s[:, None], C, -np.inf).max(axis=1)
     below = np.maximum(below, lo_s)
@@ -355,6 +372,7 @@ def pencil_critical_gains(
     sigma: int,
     gain_range: tuple[float, float],
     reference: float,
+    conservative: bool = False,
 ) -> np.ndarray:
     """Critical gains ``(V,)`` of a stack: ``inf`` = no loss in range, NaN = unstable at the reference.
 
@@ -362,8 +380,21 @@ def pencil_critical_gains(
     definitions as `sweep.analysis`; DESIGN.md section 3) because the
     branch-and-bound calls it on thousands of pencils per second and needs
     only the critical gain.
+
+    Parameters
+    ----------
+    N, D
+        Coefficient stacks ``(V, m+1)``, ``(V, n+1)``, highest power first.
+    sigma, gain_range, reference
+        As in the loop.
+    conservative
+        For lower bounds: also count nearly real roots of the crossing
+        polynomial (relative imaginary part up to 1e-4 instead of 1e-6) as
+        crossings, so that a crossing the root solver blurred into a complex
+        pair is not missed.  May only lower the result.
     """
-    return _critical_gains_direct(N, D, sigma=sigma, gain_range=gain_range, reference=reference)
+    return _critical_gains_direct(N, D, sigma=sigma, gain_range=gain_range, reference=reference,
+                                  conservative=conservative)
 
 
 # ---------------------------------------------------------------------------
@@ -417,6 +448,7 @@ def kharitonov_lower_bound(
         sigma=1,
         gain_range=gain_range,
         reference=reference,
+        conservative=True,
     ).reshape(4, B)
     unstable = np.isnan(crit).any(axis=0)
     bound = np.where(unstable, np.nan, np.min(np.where(np.isnan(crit), np.inf, crit), axis=0))
@@ -477,6 +509,8 @@ def branch_and_bound(
     batch: int = 64,
     progress: Callable[[int, float, float], None] | None = None,
     refine: bool = True,
+    coefficients: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None = None,
+    split: str = "sensitivity",
 ) -> BoundResult:
     """Bounds on ``min over the box`` of the critical gain.
 
@@ -500,6 +534,14 @@ def branch_and_bound(
         Optional ``progress(boxes, lower, upper)`` after every iteration.
     refine
         Polish the best starting points with a batched, bounded pattern search.
+    coefficients
+        ``coefficients(X (V, p)) -> (N, D)`` of actual points; needed by the
+        "sensitivity" split rule.
+    split
+        "sensitivity": split the side with the largest ``weight * relative
+        width``, weights from `_split_weights` (falls back to "widest"
+        without ``coefficients``); "widest": the widest side relative to the
+        parameter's tolerance width.
 
     Returns
     -------
@@ -507,6 +549,8 @@ def branch_and_bound(
         ``lower`` is guaranteed (up to the floating-point caveat of the pencil
         root computation); ``upper`` is a critical gain actually attained.
     """
+    if split not in ("sensitivity", "widest"):
+        raise ValueError(f"unknown split rule {split!r}; expected 'sensitivity' or 'widest'")
     t0 = time.perf_counter()
     low = np.asarray(low, dtype=float)
     high = np.asarray(high, dtype=float)
@@ -528,20 +572,7 @@ def branch_and_bound(
             best_val, best_x = float(g[i]), X[i].copy()
         return None
 
-    # starting points: centre and, for few parameters, every corner
-    centre = 0.5 * (low + high)
-    start = [centre[None]]
-    if p <= 10:
-        corners = np.array(list(itertools.product((0.0, 1.0), repeat=p))) if p else np.zeros((1, 0))
-        start.append(low + corners * (high - low))
-    else:
-        # too many corners: the two ends of each parameter and a fixed pseudo-random set
-        ends = np.repeat(centre[None], 2 * p, axis=0)
-        ends[np.arange(p), np.arange(p)] = low
-        ends[p + np.arange(p), np.arange(p)] = high
-        rng = np.random.default_rng(0)
-        start += [ends, low + rng.integers(0, 2, size=(256, p)) * (high - low)]
-    X0 = np.concatenate(start)
+    X0 = _start_points(low, high)
     g0 = point_gains(X0)
     if np.isnan(g0).any():
         return BoundResult(math.nan, math.nan, 0, X0[np.argmax(np.isnan(g0))], "unstable_at_reference",
@@ -578,6 +609,10 @@ def branch_and_bound(
     bound, status = _bounds(enclose, B_lo, B_hi, sigma, gain_range, reference)
     n_boxes = 1
     B_L = bound
+    w_crit = w_stab = np.ones(p)
+    if split == "sensitivity" and coefficients is not None and p > 1:
+        w_crit, w_stab = _split_weights(enclose, coefficients, best_x, low, high, sigma, gain_range, reference,
+                                        best_val)
 
     def open_lower() -> float:
         if B_L.size == 0:
@@ -607,13 +642,15 @@ def branch_and_bound(
         rest = np.ones(B_L.size, bool)
         rest[sel] = False
         s_lo, s_hi, s_L, s_st = B_lo[sel], B_hi[sel], B_L[sel], status[sel]
-        # split along the widest side relative to the parameter's tolerance width
+        # split the side with the largest weighted width relative to the parameter's tolerance width
         if p == 0:
             state = "stalled"  # a single point: nothing to split
             break
         rel = (s_hi - s_lo) / scale
-        axis = np.argmax(rel, axis=1)
-        if np.all(rel[np.arange(K), axis] < 1e-12):
+        # proven boxes: the sides that blur the critical gain most; boxes not yet proven stable
+        # at the reference: the sides that blur the closed-loop roots near the reference most
+        axis = np.where(s_st == OK, np.argmax(rel * w_crit, axis=1), np.argmax(rel * w_stab, axis=1))
+        if np.all(np.max(rel, axis=1) < 1e-12):
             state = "stalled"  # boxes are points: nothing more can be proven here
             break
         mid = 0.5 * (s_lo[np.arange(K), axis] + s_hi[np.arange(K), axis])
@@ -627,7 +664,15 @@ def branch_and_bound(
         p_ok = np.concatenate([s_st, s_st]) == OK
         c_bound = np.where(p_ok, np.maximum(c_bound, np.concatenate([s_L, s_L])), c_bound)
         c_status = np.where(p_ok, OK, c_status).astype(np.int8)
-        bad = points(0.5 * (c_lo + c_hi))
+        # Midpoints of children improve the upper bound and find points unstable at the
+        # reference: probe every child not proven stable there, and the lowest-bounded others.
+        # (children proven stable at the reference hold no unstable point)
+        probe = c_status != OK
+        ok_idx = np.flatnonzero(~probe)
+        if ok_idx.size > _PROBE:
+            ok_idx = ok_idx[np.argpartition(c_bound[ok_idx], _PROBE - 1)[:_PROBE]]
+        probe[ok_idx] = True
+        bad = points(0.5 * (c_lo[probe] + c_hi[probe]))
         if bad is not None:
             return BoundResult(math.nan, math.nan, n_boxes, bad, "unstable_at_reference",
                            "a point of the box is unstable at the reference gain")
@@ -655,7 +700,90 @@ def branch_and_bound(
     return BoundResult(lower, best_val, n_boxes, best_x, state, msg)
 
 
-_TINY = 1e-300
+
+
+def _split_weights(
+    enclose: EncloseFn,
+    coefficients: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]],
+    x: np.ndarray,
+    low: np.ndarray,
+    high: np.ndarray,
+    sigma: int,
+    gain_range: tuple[float, float],
+    reference: float,
+    crit: float,
+    floor: float = 1e-2,
+) -> tuple[np.ndarray, np.ndarray]:
+    """First-order estimates of how much each side of the box costs the proof.
+
+    For a quantity ``f`` of the loop's coefficients ``c_j`` (those of ``N`` and ``D``), the
+    weight of parameter ``i`` is ``sum_j |df/dc_j| * w_ij``: the derivatives by central
+    differences at the point ``x`` (the worst point found so far), ``w_ij`` the width of
+    coefficient ``j``'s enclosure when parameter ``i`` alone spans its range.  Enclosure widths
+    of a sub-box scale roughly with its sides, so ``weight * relative side`` ranks the sides by
+    how much they blur ``f``; splitting the largest closes the gap with far fewer boxes than the
+    widest side when a few parameters dominate.  Only the effort depends on it, never the bounds.
+
+    Returns
+    -------
+    (w_crit, w_stab)
+        ``f`` = the critical gain (for boxes with a proven bound), and ``f`` = the largest real
+        part of the closed-loop roots at a gain just above the reference (for boxes not yet
+        proven stable there).  Each normalised to a maximum of 1, with a floor so that every
+        side is split eventually; all ones where the estimate is unavailable.
+    """
+    p = low.size
+    ones = np.ones(p)
+    centre = 0.5 * (low + high)
+    lows = np.repeat(centre[None], p, axis=0)
+    highs = lows.copy()
+    lows[np.arange(p), np.arange(p)] = low
+    highs[np.arange(p), np.arange(p)] = high
+    N_lo, N_hi, D_lo, D_hi = (np.asarray(a, float) for a in enclose(lows, highs))
+    width = np.concatenate([N_hi - N_lo, D_hi - D_lo], axis=1)
+    width = np.where(np.isfinite(width), width, 0.0)
+    N, D = coefficients(np.asarray(x, float)[None])
+    m1 = N.shape[1]
+    c = np.concatenate([N[0], D[0]])
+    q = c.size
+    h = 1e-6 * np.maximum(np.abs(c), 1e-300)
+    C = np.repeat(c[None], 2 * q, axis=0)
+    C[np.arange(q), np.arange(q)] += h
+    C[q + np.arange(q), np.arange(q)] -= h
+
+    def weights(f: np.ndarray) -> np.ndarray:
+        with np.errstate(invalid="ignore"):
+            grad = np.abs(f[:q] - f[q:]) / (2 * h)
+        w = width @ np.where(np.isfinite(grad), grad, 0.0)
+        if not (np.all(np.isfinite(w)) and w.max() > 0):
+            return ones
+        return np.maximum(w / w.max(), floor)
+
+    g = pencil_critical_gains(C[:, :m1], C[:, m1:], sigma=sigma, gain_range=gain_range, reference=reference)
+    k_test = reference + (0.05 * (crit - reference) if math.isfinite(crit) else 0.05 * max(1.0, reference))
+    Nc, Dc = C[:, :m1], C[:, m1:]
+    P = Dc + sigma * k_test * _pad_front(Nc, Dc.shape[1])
+    r = _roots_stacked(P)
+    abscissa = np.max(np.where(np.isnan(r.real), -np.inf, r.real), axis=1) if r.shape[1] else np.zeros(2 * q)
+    return weights(g), weights(abscissa)
+
+
+def _start_points(low: np.ndarray, high: np.ndarray) -> np.ndarray:
+    """Centre and, for few parameters, every corner of the box (else the ends of each side and
+    a fixed pseudo-random set of corners)."""
+    p = low.size
+    centre = 0.5 * (low + high)
+    start = [centre[None]]
+    if p <= 10:
+        corners = np.array(list(itertools.product((0.0, 1.0), repeat=p))) if p else np.zeros((1, 0))
+        start.append(low + corners * (high - low))
+    else:
+        ends = np.repeat(centre[None], 2 * p, axis=0)
+        ends[np.arange(p), np.arange(p)] = low
+        ends[p + np.arange(p), np.arange(p)] = high
+        rng = np.random.default_rng(0)
+        start += [ends, low + rng.integers(0, 2, size=(256, p)) * (high - low)]
+    return np.concatenate(start)
 
 
 def _snap_zeros(enclose: EncloseFn, zN: np.ndarray, zD: np.ndarray) -> EncloseFn:
@@ -867,28 +995,99 @@ def _kharitonov_route(config, names, enclose, point_gains, values, low, high, re
         hullN[0][None], hullN[1][None], hullD[0][None], hullD[1][None], sigma=config.sigma, gain_range=gr, reference=ref
     )
     KD, KN = kharitonov_pencils(hullN[0][None], hullN[1][None], hullD[0][None], hullD[1][None], config.sigma)
-    crit = pencil_critical_gains(KN[:, 0], KD[:, 0], sigma=1, gain_range=gr, reference=ref)
+    crit = pencil_critical_gains(KN[:, 0], KD[:, 0], sigma=1, gain_range=gr, reference=ref, conservative=True)
     # the parameter corner realising each pencil: each parameter moves one coefficient
+    # (compared only on the coefficients the parameter moves, relative to how far it moves
+    # them: coefficients of very different sizes must not drown each other)
+    C_ends = np.concatenate([N, D], axis=1)
     corners = []
     for i in range(4):
         x = low.copy()
+        target = np.concatenate([config.sigma * KN[i, 0][-N.shape[1]:], KD[i, 0]])
         for j in range(p):
-            vlo, vhi = X[2 * j], X[2 * j + 1]
-            Nlo_j, Nhi_j = N[2 * j], N[2 * j + 1]
-            Dlo_j, Dhi_j = D[2 * j], D[2 * j + 1]
-            target_D = KD[i, 0]
-            target_N = config.sigma * KN[i, 0][-N.shape[1]:]
-            err_lo = np.abs(Dlo_j - target_D).sum() + np.abs(Nlo_j - target_N).sum()
-            err_hi = np.abs(Dhi_j - target_D).sum() + np.abs(Nhi_j - target_N).sum()
-            x[j] = vhi[j] if err_hi < err_lo else vlo[j]
+            c_lo, c_hi = C_ends[2 * j], C_ends[2 * j + 1]
+            moved = c_lo != c_hi
+            if not moved.any():
+                continue
+            span = np.abs(c_hi - c_lo)[moved]
+            err_lo = np.sum(np.abs(c_lo[moved] - target[moved]) / span)
+            err_hi = np.sum(np.abs(c_hi[moved] - target[moved]) / span)
+            x[j] = high[j] if err_hi < err_lo else low[j]
         corners.append(x)
     corners = np.array(corners)
     g = point_gains(corners)
     # the corner must reproduce its pencil (else the structural reading was wrong)
-    same = np.where(np.isnan(crit), np.isnan(g), np.isclose(g, crit, rtol=1e-9) | (np.isinf(g) & np.isinf(crit)))
+    same = np.where(np.isnan(crit), np.isnan(g), np.isclose(g, crit, rtol=1e-9, atol=0.0) | (np.isinf(g) & np.isinf(crit)))
     if not np.all(same):
         return None
     return bound[0], status[0], crit, corners
+
+
+def _lead_at_reference(config: Any, values: Callable[[np.ndarray], dict], ref: float):
+    """Leading coefficient of ``P = D + sigma ref N`` at points ``(V, p)``; None when ``deg N < deg D``.
+
+    With ``deg N < deg D`` it is the leading coefficient of ``D``, whose sign
+    `sweep.loop.validate` has proven constant over the box.
+    """
+    from sweep import loop
+
+    m, n = loop.open_loop_degrees(config)
+    if m < n:
+        return None
+
+    def lead(X: np.ndarray) -> np.ndarray:
+        N, D = loop.assemble(config, values(X))
+        return D[:, 0] + config.sigma * ref * N[:, 0]
+
+    return lead
+
+
+def _degree_loss(lead, X: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """A small box ``(a, b)`` holding a point where ``lead`` vanishes, or None.
+
+    Looks for a zero or a sign change among the points ``X``; a sign change is
+    narrowed by bisection along the segment between two points of opposite
+    sign (the coefficient is continuous over the box), so the box it returns
+    is the bracket of the last step.
+    """
+    v = lead(X)
+    if np.any(v == 0):
+        x = X[int(np.argmax(v == 0))]
+        return x, x
+    if not (np.any(v > 0) and np.any(v < 0)):
+        return None
+    a, b = X[int(np.argmax(v > 0))].copy(), X[int(np.argmax(v < 0))].copy()
+    for _ in range(60):
+        mid = 0.5 * (a + b)
+        vm = lead(mid[None])[0]
+        if vm == 0:
+            return mid, mid
+        if vm > 0:
+            a = mid
+        else:
+            b = mid
+    return a, b
+
+
+def _full_critical_gain(config: Any, values: Callable[[np.ndarray], dict], x: np.ndarray) -> float:
+    """Critical gain of one point by `sweep.analysis` (the routine the sweep itself uses)."""
+    from sweep import analysis, loop
+
+    N, D = loop.assemble(config, values(np.asarray(x, float)[None]))
+    return float(analysis.analyze_stack(N, D, sigma=config.sigma, gain_range=tuple(config.gain_range),
+                                         operating_gain=config.operating_gain)["critical_gain"][0])
+
+
+def _describe_box(where: dict[str, list[float]]) -> str:
+    """``J in [a, b], R = c`` (a side of zero width is a value)."""
+    parts = []
+    for name, (a, b) in where.items():
+        parts.append(f"{name} = {a:.6g}" if f"{a:.6g}" == f"{b:.6g}" else f"{name} in [{a:.6g}, {b:.6g}]")
+    return ", ".join(parts) if parts else "the nominal (no uncertain parameters)"
+
+
+# Statuses whose ``lower`` is a guaranteed bound (the others leave it undefined).
+_PROVEN = ("exact", "certified", "budget", "stalled")
 
 
 def certify(
@@ -898,6 +1097,7 @@ def certify(
     max_boxes: int = 200_000,
     max_seconds: float = 60.0,
     progress: Callable[[int, float, float], None] | None = None,
+    split: str = "sensitivity",
 ) -> dict[str, Any]:
     """Guaranteed bounds on the worst-case critical gain over the tolerance box.
 
@@ -911,20 +1111,36 @@ def certify(
         Budget of the branch-and-bound.
     progress
         Optional ``progress(boxes, lower, upper)`` callback (for a progress bar).
+    split
+        Split rule of the branch-and-bound, "sensitivity" (default) or
+        "widest" (see `branch_and_bound`); changes the effort, not the bounds.
 
     Returns
     -------
     dict
         The ``certify --json`` fields ``method``, ``exact``, ``lower``,
         ``upper``, ``relative_gap``, ``boxes``, ``worst_parameters``
-        ({name: value}) plus ``status`` ("exact", "certified", "budget",
-        "stalled", "unstable_at_reference", "degree_invariance_fails",
-        "reference_unproven" -- the last two: some sub-box could not be
-        proven stable at the reference gain, named in ``where``),
-        ``message``, ``where`` (a parameter box {name: [low, high]} where
-        the proof failed, else None) and ``elapsed`` seconds.  ``inf`` means
-        no loss of stability within the gain range; NaN bounds go with an
-        unstable-at-reference status.
+        ({name: value}) plus ``status``, ``message``, ``where`` and
+        ``elapsed`` seconds.  ``status`` is one of
+
+        * "exact" -- interval family, ``lower == upper`` by Kharitonov's theorem;
+        * "certified" -- ``upper - lower <= rtol * upper``;
+        * "budget", "stalled" -- box/time budget spent, or boxes shrank to
+          points, before the gap closed: both bounds still hold;
+        * "unstable_at_reference" -- ``worst_parameters`` is a point that is
+          unstable at the reference gain: the worst case is undefined (NaN);
+        * "degree_invariance_fails" -- the leading coefficient of
+          ``D + sigma k N`` at the reference gain vanishes inside the box
+          (a root through infinity), so the worst case is undefined;
+        * "reference_unproven" -- no unstable point was found, but stability
+          at the reference gain could not be proven everywhere.
+
+        ``lower`` is NaN unless the status is one of the first three
+        (``upper`` stays the best value actually found); ``where`` is the
+        parameter box {name: [low, high]} where the proof failed, else None.
+        ``exact`` is true for a conclusive Kharitonov result ("exact", or an
+        unstable Kharitonov corner).  ``inf`` means no loss of stability
+        within the gain range.
     """
     if not (rtol > 0):
         raise InputError("rtol must be a positive number, e.g. 0.01", file=config.source, field="--rtol")
@@ -935,18 +1151,21 @@ def certify(
     low = np.array([p.low for p in unc], dtype=float)
     high = np.array([p.high for p in unc], dtype=float)
     gr = tuple(config.gain_range)
+    interval_family = is_interval_family(config)
+    method = "kharitonov" if interval_family else "branch-and-bound"
 
     def named(x):
         return None if x is None else {n: float(v) for n, v in zip(names, x)}
 
     def result(method, lower, upper, boxes, worst, status, message, where=None):
+        lower = float(lower) if status in _PROVEN else math.nan
         # field order: the certify --json fields first, then the extras
         return {
             "method": method,
-            "exact": method == "kharitonov",
-            "lower": float(lower),
+            "exact": method == "kharitonov" and status in ("exact", "unstable_at_reference"),
+            "lower": lower,
             "upper": float(upper),
-            "relative_gap": _relative_gap(float(lower), float(upper)),
+            "relative_gap": _relative_gap(lower, float(upper)),
             "boxes": int(boxes),
             "worst_parameters": named(worst),
             "status": status,
@@ -955,36 +1174,77 @@ def certify(
             "elapsed": time.perf_counter() - t0,
         }
 
+    def box_of(a, b):
+        return {n: [float(min(u, v)), float(max(u, v))] for n, u, v in zip(names, a, b)}
+
     unstable_msg = f"a point of the box is unstable at the reference gain {ref:g}"
-    if is_interval_family(config):
+    # Degree invariance at the reference gain (DESIGN section 8): a sign change of the leading
+    # coefficient of P among the start points proves a root through infinity there.
+    lead = _lead_at_reference(config, values, ref)
+    if lead is not None:
+        found = _degree_loss(lead, _start_points(low, high))
+        if found is not None:
+            where = box_of(*found)
+            return result(method, math.nan, math.nan, 0, 0.5 * (found[0] + found[1]), "degree_invariance_fails",
+                          f"the leading coefficient of the closed-loop polynomial at the reference gain {ref:g} "
+                          f"vanishes inside the box, near {_describe_box(where)}: a closed-loop root passes "
+                          "through infinity there, so the loop's order changes and the worst case is undefined; "
+                          "narrow the tolerances or move the operating gain", where)
+
+    if interval_family:
         route = _kharitonov_route(config, names, enclose, point_gains, values, low, high, ref)
         if route is not None:
             bound, status, crit, corners = route
-            if status == DEGREE_FAILS:
-                box = {n: [float(a), float(b)] for n, a, b in zip(names, low, high)}
+            if status == DEGREE_FAILS:  # reached only when the corners above missed it (rounding)
+                where = box_of(low, high)
                 return result("kharitonov", math.nan, math.nan, 1, None, "degree_invariance_fails",
-                              "the leading coefficient of D + k*sigma*N can vanish inside the box "
-                              "at the reference gain", box)
+                              f"the leading coefficient of the closed-loop polynomial at the reference gain {ref:g} "
+                              "is not proven to keep its sign over the box; the worst case may be undefined", where)
             if status == UNSTABLE_AT_REFERENCE:
                 i = int(np.argmax(np.isnan(crit)))
                 return result("kharitonov", math.nan, math.nan, 1, corners[i], "unstable_at_reference",
-                              unstable_msg + " (a Kharitonov corner)")
-            if progress is not None:
-                progress(1, float(bound), float(bound))
+                              unstable_msg + " (a corner of the box; see worst_parameters)")
             i = int(np.argmin(crit))
-            return result("kharitonov", bound, bound, 1, corners[i], "exact",
-                          "interval family: exact by Kharitonov's theorem")
+            full = _full_critical_gain(config, values, corners[i])
+            if full == bound or abs(full - bound) <= 1e-9 * abs(bound):
+                if progress is not None:
+                    progress(1, float(bound), float(bound))
+                return result("kharitonov", bound, bound, 1, corners[i], "exact",
+                              "interval family: exact by Kharitonov's theorem")
+            # the full analysis disagrees at the worst corner: do not claim exactness
+
+    from sweep import loop
 
     res = branch_and_bound(
         enclose, point_gains, low, high, sigma=config.sigma, gain_range=gr, reference=ref,
         rtol=rtol, max_boxes=max_boxes, max_seconds=max_seconds, progress=progress,
+        coefficients=lambda X: loop.assemble(config, values(X)), split=split,
     )
     where = None
-    msg = unstable_msg if res.status == "unstable_at_reference" else res.message
+    status, lower, upper = res.status, res.lower, res.upper
+    msg = unstable_msg + " (see worst_parameters)" if status == "unstable_at_reference" else res.message
     if res.where is not None:
-        where = {n: [float(a), float(b)] for n, a, b in zip(names, res.where[0], res.where[1])}
-        msg = f"{msg} near {where}"
-    return result("branch-and-bound", res.lower, res.upper, res.boxes, res.worst, res.status, msg, where)
+        where = box_of(res.where[0], res.where[1])
+        msg = f"{msg}; the proof fails near {_describe_box(where)}"
+    if status in _PROVEN and res.worst is not None and not math.isnan(upper):
+        # the upper bound is a value attained by a point: confirm it with the full analysis
+        full = _full_critical_gain(config, values, res.worst)
+        if math.isnan(full):
+            msg += ("; note: the full analysis does not confirm the worst point as stable at the reference "
+                    "gain (a marginal case); its value is that of the fast routine")
+        elif not (full == upper or abs(full - upper) <= 1e-9 * abs(upper)):
+            msg += (f"; the full analysis gives {full:.10g} at the worst point where the fast routine "
+                    f"gave {upper:.10g}: the full analysis is reported")
+            upper = full
+            lower = min(lower, upper)
+            if status == "certified" and not _within(lower, upper, rtol):
+                status = "budget"
+    return result("branch-and-bound", lower, upper, res.boxes, res.worst, status, msg, where)
+
+
+def _within(lower: float, upper: float, rtol: float) -> bool:
+    """The stopping rule ``upper - lower <= rtol * upper`` (equal infinities count)."""
+    return lower == upper or (math.isfinite(upper) and upper - lower <= rtol * abs(upper))
 
 
 def format_certificate(result: dict[str, Any]) -> str:
@@ -998,8 +1258,9 @@ def format_certificate(result: dict[str, Any]) -> str:
     Returns
     -------
     str
-        A few lines: the bracket on the worst-case critical gain, how it was
-        obtained, and the worst parameter combination found.
+        A few lines: the bracket on the worst-case critical gain (or why
+        there is none), how it was obtained, where a proof failed, and the
+        worst parameter combination found.
     """
 
     def num(x):
@@ -1009,21 +1270,30 @@ def format_certificate(result: dict[str, Any]) -> str:
             return "inf (no loss of stability within the gain range)" if x > 0 else "-inf"
         return f"{x:.6g}"
 
+    st = result["status"]
     lines = []
-    if result["status"] == "unstable_at_reference":
-        lines.append("worst-case critical gain: undefined (unstable at the reference gain)")
-    elif result["exact"]:
+    if st == "unstable_at_reference":
+        lines.append("worst-case critical gain: undefined (a point of the box is unstable at the reference gain)")
+    elif st == "degree_invariance_fails":
+        lines.append("worst-case critical gain: undefined (the loop's order changes inside the box "
+                     "at the reference gain)")
+    elif st == "reference_unproven":
+        lines.append("worst-case critical gain: not proven (stability at the reference gain is not proven "
+                     f"everywhere); the smallest value found is {num(result['upper'])}")
+    elif st == "exact":
         lines.append(f"worst-case critical gain: {num(result['lower'])} (exact)")
     else:
-        lines.append(f"worst-case critical gain between {num(result['lower'])} and {num(result['upper'])}")
+        lines.append(f"worst-case critical gain between {num(result['lower'])} and {num(result['upper'])}"
+                     + ("" if st == "certified" else " (requested tolerance not reached)"))
         gap = result["relative_gap"]
         if gap is not None and math.isfinite(gap):
             lines.append(f"relative gap: {gap:.3g}")
     lines.append(f"method: {result['method']}, {result['boxes']} boxes, {result['elapsed']:.2f} s")
-    lines.append(f"status: {result['status']}: {result['message']}")
+    lines.append(f"status: {st}: {result['message']}")
     if result.get("worst_parameters"):
         worst = ", ".join(f"{k} = {v:.6g}" for k, v in result["worst_parameters"].items())
-        lines.append(f"worst parameters: {worst}")
+        label = {"unstable_at_reference": "unstable point", "degree_invariance_fails": "order changes near"}
+        lines.append(f"{label.get(st, 'worst parameters')}: {worst}")
     return "\n".join(lines)
 
 

@@ -744,3 +744,469 @@ def test_interval_family_positive_feedback_corner_sweep():
     assert res["method"] == "kharitonov" and res["status"] == "exact"
     g = _sweep_gains(cfg, _corner_values(cfg))  # Kharitonov (1978): worst case at a vertex
     assert np.nanmin(g) == pytest.approx(res["lower"], rel=1e-9)
+
+
+# ===========================================================================
+# Review of issue 7: more families, the general sympy reference, degree loss, fallbacks
+# ===========================================================================
+
+
+def _sympy_boundary_critical_gain(dcoef, ncoef, *, sigma=1, gain_range=(0.0, INF), ref=0.0, op=False, digits=40):
+    """Critical gain of ``D + sigma k N`` for any gain range and reference, computed independently.
+
+    sympy (exact rational arithmetic): the Hurwitz determinant Delta_{n-1}(k), a_0(k) and a_n(k)
+    as exact polynomials in k; along a path in k stability can change only at their real roots
+    (Hurwitz criterion with Orlando's formula; root through infinity where a_n = 0; from memory).
+    mpmath (40 digits) keeps the candidates where P(s, k) really has a root on the axis (or
+    loses degree), then decides stability between neighbouring boundary gains from the roots.
+    ``op``: the reference is an operating gain (a boundary there makes it NaN); otherwise it is
+    the lower end of the range approached from above.
+    """
+    import mpmath
+    import sympy as sp
+
+    k = sp.symbols("k")
+    n = len(dcoef) - 1
+    ncoef = [0.0] * (n + 1 - len(ncoef)) + list(ncoef)
+    a = [sp.Rational(d) + sigma * k * sp.Rational(c) for d, c in zip(dcoef, ncoef)]  # highest first
+    lo, hi = gain_range
+    H = sp.zeros(n, n)
+    for i in range(n):
+        for j in range(n):
+            idx = 2 * j - i + 1
+            if 0 <= idx <= n:
+                H[i, j] = a[idx]
+    polys = [sp.Poly(sp.expand(H[: n - 1, : n - 1].det()), k)] if n >= 2 else []
+    polys += [sp.Poly(a[-1], k), sp.Poly(a[0], k)]
+    mpmath.mp.dps = digits
+
+    def coeffs_at(kv):
+        return [mpmath.mpf(str(sp.N(x.subs(k, kv), digits))) for x in a]
+
+    def axis_or_degree(kv):
+        c = coeffs_at(kv)
+        if c[0] == 0 or abs(c[0]) < mpmath.mpf(10) ** (-digits // 2) * max(abs(x) for x in c):
+            return True
+        roots = mpmath.polyroots(c, maxsteps=400, extraprec=200)
+        scale = max(1.0, max(abs(r) for r in roots))
+        return min(abs(mpmath.re(r)) for r in roots) < mpmath.mpf(10) ** (-digits // 2) * scale
+
+    def stable_at(kv):
+        c = coeffs_at(kv)
+        if c[0] == 0:
+            return False
+        return all(mpmath.re(r) < 0 for r in mpmath.polyroots(c, maxsteps=400, extraprec=200))
+
+    bounds = set()
+    for pk in polys:
+        if pk.degree() <= 0:
+            continue
+        for r in pk.nroots(n=digits, maxsteps=200):
+            if abs(sp.im(r)) < 1e-30:
+                kv = sp.re(r)
+                if lo < kv < hi and axis_or_degree(kv):
+                    bounds.add(sp.Float(kv, digits))
+    bounds = sorted(bounds)
+    if op and any(abs(b - ref) <= 1e-12 * abs(ref) for b in bounds):
+        return math.nan
+    below = [b for b in bounds if b <= ref]
+    above = [b for b in bounds if b > ref]
+    left = below[-1] if below else sp.Float(lo, digits)
+    test = (left + above[0]) / 2 if above else left + max(1, abs(left))
+    if not stable_at(test):
+        return math.nan
+    return float(above[0]) if above else INF
+
+
+def _kharitonov_by_hand(lo_list, hi_list):
+    """The four Kharitonov polynomials from METHODS.md, written out by power from a_0 up
+    (K1: l l u u, K2: u u l l, K3: l u u l, K4: u l l u, period 4; Kharitonov 1978) and
+    returned highest power first -- independent of sweep.certify's pattern table."""
+    lo_up = list(reversed(lo_list))
+    hi_up = list(reversed(hi_list))
+    pattern = ["lluu", "uull", "luul", "ullu"]
+    out = []
+    for pat in pattern:
+        c = [(hi_up if pat[p % 4] == "u" else lo_up)[p] for p in range(len(lo_up))]
+        out.append(list(reversed(c)))
+    return out
+
+
+def _param_bounds(cfg, text):
+    """Interval ends of a coefficient given as a parameter name, its negative, or a number."""
+    text = str(text)
+    if text.startswith("-"):
+        a, b = _param_bounds(cfg, text[1:])
+        return -b, -a
+    for p in cfg.parameters:
+        if p.name == text:
+            return p.low, p.high
+    return float(text), float(text)
+
+
+# interval families given as configs: (params, num, den, loop_extra) -- our own made-up loops
+EXACT_FAMILIES = {
+    # furnace with three lags, gains counted from 2 upwards
+    "furnace-lo": ({"b0": "{ nominal = 2.0, tol = '10%' }", "a3": "{ nominal = 1.0, tol = '5%' }",
+                    "a2": "{ nominal = 6.0, tol = '10%' }", "a1": "{ nominal = 11.0, tol = '10%' }",
+                    "a0": "{ nominal = 6.0, tol = '20%' }"},
+                   ["b0"], ["a3", "a2", "a1", "a0"], "gain_range = [2, inf]\noperating_gain = 5"),
+    # spindle: two integrators and a lead -- unstable for small gains, so only an operating gain
+    # inside the stable window makes sense (conditionally stable)
+    "spindle": ({"c2": "{ nominal = 1.0, tol = '10%' }", "c1": "{ nominal = 2.0, tol = '10%' }",
+                 "c0": "{ nominal = 1.0, tol = '10%' }", "d5": "{ nominal = 1.0, tol = '2%' }",
+                 "d4": "{ nominal = 30.0, tol = '5%' }", "d3": "{ nominal = 200.0, tol = '5%' }"},
+                ["c2", "c1", "c0"], ["d5", "d4", "d3", 0, 0, 0], "operating_gain = 500"),
+    # valve with a feed-through path: a root leaves through infinity at k = 1/a
+    "valve": ({"a": "{ nominal = 0.5, tol = '20%' }", "b": "{ nominal = 2.0, tol = '10%' }"},
+              ["-a", 1], [1, "b"], ""),
+    # dosing pump with a right-half-plane zero
+    "dosing": ({"b1": "{ nominal = -0.2, tol = '20%' }", "b0": "{ nominal = 1.0, tol = '10%' }",
+                "a3": "{ nominal = 1.0, tol = '5%' }", "a2": "{ nominal = 4.0, tol = '10%' }",
+                "a1": "{ nominal = 5.0, tol = '10%' }", "a0": "{ nominal = 2.0, tol = '10%' }"},
+               ["b1", "b0"], ["a3", "a2", "a1", "a0"], "operating_gain = 1"),
+    # micro-positioner: coefficients from 1e-12 to 1e-1 and a critical gain near 3e-3
+    "micro": ({"b0": "{ nominal = 1e12, tol = '10%' }", "a3": "{ nominal = 1.0, tol = '10%' }",
+               "a2": "{ nominal = 3e4, tol = '10%' }", "a1": "{ nominal = 2e8, tol = '20%' }",
+               "a0": "{ nominal = 1e11, tol = '10%' }"},
+              ["b0"], ["a3", "a2", "a1", "a0"], ""),
+    # the same loop scaled so that the worst critical gain is about 3e-15 (no absolute tolerances)
+    "micro-tiny": ({"b0": "{ nominal = 1e24, tol = '10%' }", "a3": "{ nominal = 1.0, tol = '10%' }",
+                    "a2": "{ nominal = 3e4, tol = '10%' }", "a1": "{ nominal = 2e8, tol = '20%' }",
+                    "a0": "{ nominal = 1e11, tol = '10%' }"},
+                   ["b0"], ["a3", "a2", "a1", "a0"], ""),
+    # hoist with positive feedback through an inverting amplifier, range capped at 40
+    "hoist-capped": ({"b1": "{ nominal = -0.5, tol = '10%' }", "b0": "{ nominal = -1.5, tol = '20%' }",
+                      "a3": "{ nominal = 1.0, tol = '5%' }", "a2": "{ nominal = 4.0, tol = '10%' }",
+                      "a1": "{ nominal = 6.0, tol = '10%' }", "a0": "{ nominal = 3.0, tol = '10%' }"},
+                     ["b1", "b0"], ["a3", "a2", "a1", "a0"], "feedback = 'positive'\ngain_range = [0, 40]"),
+}
+
+
+def _exact_family_config(name):
+    params, num, den, extra = EXACT_FAMILIES[name]
+    q = lambda x: f"'{x}'" if isinstance(x, str) else repr(x)  # noqa: E731
+    plant = f"num = [{', '.join(q(x) for x in num)}]\nden = [{', '.join(q(x) for x in den)}]"
+    return _config(params, plant, extra), num, den
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", sorted(EXACT_FAMILIES))
+def test_exact_route_against_sympy_and_corner_sweep(name):
+    cfg, num, den = _exact_family_config(name)
+    assert is_interval_family(cfg)
+    res = certify(cfg)
+    assert res["method"] == "kharitonov" and res["status"] == "exact" and res["exact"] is True
+    # Kharitonov (1978): the family at each k >= 0 is an interval polynomial whose four
+    # Kharitonov polynomials are Kh_i(D) + k Kh_i(sigma N); the worst case is the smallest of
+    # their critical gains, each computed here exactly (sympy + mpmath), patterns written by hand
+    sN = [(-b, -a) if cfg.sigma < 0 else (a, b) for a, b in (_param_bounds(cfg, x) for x in num)]
+    KN = _kharitonov_by_hand([a for a, _ in sN], [b for _, b in sN])
+    dD = [_param_bounds(cfg, x) for x in den]
+    KD = _kharitonov_by_hand([a for a, _ in dD], [b for _, b in dD])
+    op = cfg.operating_gain is not None
+    ref = cfg.operating_gain if op else cfg.gain_range[0]
+    exact = min(_sympy_boundary_critical_gain(KD[i], KN[i], sigma=1, gain_range=cfg.gain_range, ref=ref, op=op)
+                for i in range(4))
+    if math.isinf(exact):
+        assert res["lower"] == INF and res["upper"] == INF
+    else:
+        assert res["lower"] == pytest.approx(exact, rel=1e-9) and res["upper"] == res["lower"]
+    # the corner sweep (the project's full analysis) finds the same worst case at a vertex
+    g = _sweep_gains(cfg, _corner_values(cfg))
+    assert not np.isnan(g).any()
+    if math.isinf(exact):
+        assert np.all(np.isinf(g))
+    else:
+        assert g.min() == pytest.approx(res["lower"], rel=1e-9)
+        worst = {p.name: np.array([res["worst_parameters"].get(p.name, p.nominal)]) for p in cfg.parameters}
+        assert _sweep_gains(cfg, worst)[0] == pytest.approx(res["lower"], rel=1e-9)
+
+
+def test_general_sympy_reference_textbook():
+    # the reference itself on textbook loops (Routh, from memory): 1/(s+1)^3 -> 8; with the
+    # operating gain on the boundary -> NaN; gain range starting at 2 -> still 8
+    assert _sympy_boundary_critical_gain([1, 3, 3, 1], [1]) == pytest.approx(8.0, rel=1e-12)
+    assert math.isnan(_sympy_boundary_critical_gain([1, 3, 3, 1], [1], ref=8.0, op=True))
+    assert _sympy_boundary_critical_gain([1, 3, 3, 1], [1], gain_range=(2.0, INF), ref=2.0) == pytest.approx(8.0)
+    # (1 - s/2)/(s + 2) ... a root through infinity at k = 2: P = (1 - k/2) s + 2 + k
+    assert _sympy_boundary_critical_gain([1, 2], [-0.5, 1]) == pytest.approx(2.0, rel=1e-12)
+
+
+def test_coupled_coefficients_are_not_an_interval_family():
+    params = {"K": "{ nominal = 2.0, tol = '10%' }", "a": "{ nominal = 3.0, tol = '10%' }"}
+    # K in the numerator and in the constant term of the denominator: coupled
+    cfg = _config(params, "num = ['K']\nden = [1, 'a', 4, 'K']")
+    assert not is_interval_family(cfg)
+    # a single-use coefficient whose range is not spanned by the parameter's ends: the
+    # structural test passes, the numerical check sends it to the branch-and-bound
+    cfg = _config({"a": "{ nominal = 1.0, low = 0.5, high = 1.5 }", "b": "{ nominal = 6.0, tol = '10%' }"},
+                  "num = [1]\nden = [1, 'b', '11 + (a - 1)^2', 6]")
+    assert is_interval_family(cfg)
+    res = certify(cfg)
+    assert res["method"] == "branch-and-bound" and res["status"] == "certified"
+    rng = np.random.default_rng(2)
+    vals = {"a": 0.5 + rng.random(5000), "b": 5.4 + 1.2 * rng.random(5000)}
+    dense = np.nanmin(_sweep_gains(cfg, vals))
+    assert res["lower"] <= dense * (1 + 1e-12) and res["upper"] <= dense / (1 - 0.01)
+
+
+VALVE = ({"a": "{ nominal = 0.5, tol = '20%' }", "b": "{ nominal = 2.0, tol = '10%' }"},
+         "num = ['-a', 1]\nden = [1, 'b']")
+
+
+@pytest.mark.parametrize(
+    "params, plant, op, where_rule",
+    [
+        # interval family: P = (1 - k a) s + b + k loses its leading coefficient at k a = 1
+        (VALVE[0], VALVE[1], 1.9, lambda w: 1 - 1.9 * w["a"]),
+        # dependent family: P = (1 - k a b) s + c b + k
+        ({"a": "{ nominal = 0.5, tol = '20%' }", "b": "{ nominal = 2.0, tol = '10%' }",
+          "c": "{ nominal = 1.0, tol = '10%' }"}, "transfer = '(1 - a*b*s)/(s + c*b)'", 0.9,
+         lambda w: 1 - 0.9 * w["a"] * w["b"]),
+    ],
+    ids=["interval-family", "dependent"],
+)
+def test_degree_loss_at_the_reference_is_reported_with_its_place(params, plant, op, where_rule):
+    from sweep.certify import format_certificate
+
+    cfg = _config(params, plant, f"operating_gain = {op}")
+    res = certify(cfg)
+    assert res["status"] == "degree_invariance_fails" and res["exact"] is False
+    assert math.isnan(res["lower"]) and math.isnan(res["upper"])
+    assert "infinity" in res["message"] and "near a = " in res["message"]
+    # the reported place is (to rounding) on the surface where the leading coefficient vanishes
+    point = {k: 0.5 * (lo + hi) for k, (lo, hi) in res["where"].items()}
+    assert abs(where_rule(point)) < 1e-9
+    assert point == pytest.approx(res["worst_parameters"])
+    for name, (lo, hi) in res["where"].items():
+        p = next(q for q in cfg.parameters if q.name == name)
+        assert p.low <= lo <= hi <= p.high
+    text = format_certificate(res)
+    assert "undefined" in text and "order changes" in text
+
+
+def test_degree_fine_away_from_the_reference():
+    # the same valve at an operating gain where every leading coefficient is positive
+    cfg = _config(*VALVE, "operating_gain = 1.5")
+    res = certify(cfg)
+    assert res["status"] == "exact" and res["lower"] == pytest.approx(1 / 0.6, rel=1e-12)
+
+
+def test_operating_gain_on_a_boundary_is_unstable_as_in_analysis():
+    # 1/(s+1)^3 has its boundary at 8 (Routh, from memory)
+    N, D = np.array([[1.0]]), np.array([[1.0, 3.0, 3.0, 1.0]])
+    for ref in (8.0, 8.0 * (1 + 1e-12)):
+        g = pencil_critical_gains(N, D, sigma=1, gain_range=(0, INF), reference=ref)
+        a = analysis.analyze_stack(N, D, sigma=1, gain_range=(0, INF), operating_gain=ref)["critical_gain"]
+        assert math.isnan(g[0]) and math.isnan(a[0])
+    # the lower end of the range is approached from above, never "on" a boundary
+    g = pencil_critical_gains(N, D, sigma=1, gain_range=(7.0, INF), reference=7.0)
+    assert g[0] == pytest.approx(8.0, rel=1e-12)
+
+
+def test_conservative_pencils_keep_crossings_the_solver_blurs(monkeypatch):
+    # Make the root solver return every root of the crossing polynomial with a relative
+    # imaginary part of 1e-5 (as it may for two nearly equal real roots): the faithful mode
+    # then misses the crossing of 1/(s+1)^3 at k = 8, the conservative mode (lower bounds) keeps it
+    import sweep.certify as cm
+
+    real_roots = cm._roots_stacked
+    calls = []
+
+    def blurred(c, return_bad=False):
+        out = real_roots(c, return_bad=return_bad)
+        if not calls:  # the first call solves the crossing polynomial
+            calls.append(1)
+            r, bad = out if return_bad else (out, None)
+            r = r.real + 1e-5j * np.abs(r)
+            return (r, bad) if return_bad else r
+        return out
+
+    N, D = np.array([[1.0]]), np.array([[1.0, 3.0, 3.0, 1.0]])
+    monkeypatch.setattr(cm, "_roots_stacked", blurred)
+    faithful = pencil_critical_gains(N, D, sigma=1, gain_range=(0, INF), reference=0.0)
+    calls.clear()
+    conservative = pencil_critical_gains(N, D, sigma=1, gain_range=(0, INF), reference=0.0, conservative=True)
+    assert faithful[0] != pytest.approx(8.0)  # missed (this is what the conservative mode guards)
+    assert conservative[0] == pytest.approx(8.0, rel=1e-12)
+
+
+def test_conservative_never_above_faithful():
+    rng = np.random.default_rng(4)
+    D = np.abs(rng.normal(size=(3000, 6))) * 10 ** rng.uniform(-2, 2, (3000, 6))
+    N = rng.normal(size=(3000, 3))
+    g = pencil_critical_gains(N, D, sigma=1, gain_range=(0, INF), reference=0.0)
+    c = pencil_critical_gains(N, D, sigma=1, gain_range=(0, INF), reference=0.0, conservative=True)
+    both = ~np.isnan(g) & ~np.isnan(c)
+    assert np.all(c[both] <= g[both])
+    assert np.mean(c[both] == g[both]) > 0.99  # and almost always the same
+
+
+def test_full_analysis_disagreeing_at_the_worst_point(monkeypatch):
+    import sweep.certify as cm
+
+    # branch-and-bound: the full analysis is reported, and a gap beyond rtol is not "certified"
+    monkeypatch.setattr(cm, "_full_critical_gain", lambda config, values, x: 1.5 * 30.72)
+    cfg = _config({"a": "{ nominal = 1.0, tol = '20%' }", "b": "{ nominal = 2.0, tol = '20%' }",
+                   "c": "{ nominal = 3.0, tol = '20%' }"}, "transfer = '1/((s+a)*(s+b)*(s+c))'")
+    res = certify(cfg)
+    assert res["upper"] == pytest.approx(1.5 * 30.72) and res["status"] == "budget"
+    assert "full analysis" in res["message"]
+    # Kharitonov route: exactness is not claimed, the branch-and-bound takes over
+    monkeypatch.setattr(cm, "_full_critical_gain", lambda config, values, x: math.nan)
+    res = certify(_config(TANK_PARAMS, TANK_PLANT))
+    assert res["method"] == "branch-and-bound" and res["exact"] is False
+
+
+def test_unproven_reference_leaves_lower_undefined():
+    # two lightly damped modes: a tiny budget cannot prove stability at the reference everywhere
+    from sweep.certify import format_certificate
+
+    cfg = _config({"z1": "{ nominal = 0.02, tol = '40%' }", "w1": "{ nominal = 1.0, tol = '10%' }",
+                   "z2": "{ nominal = 0.03, tol = '40%' }", "w2": "{ nominal = 3.0, tol = '10%' }"},
+                  "transfer = '1/((s^2 + 2*z1*w1*s + w1^2)*(s^2 + 2*z2*w2*s + w2^2))'")
+    res = certify(cfg, max_boxes=40)
+    assert res["status"] == "reference_unproven"
+    assert math.isnan(res["lower"]) and math.isnan(res["relative_gap"]) and res["where"]
+    assert math.isfinite(res["upper"])
+    worst = {p.name: np.array([res["worst_parameters"][p.name]]) for p in cfg.uncertain}
+    assert _sweep_gains(cfg, worst)[0] == pytest.approx(res["upper"], rel=1e-9)
+    assert "not proven" in format_certificate(res)
+
+
+# products of parameters with positive feedback, operating gains, ranges starting above 0,
+# conditional stability and a right-half-plane zero (own scenarios)
+DEPENDENT = {
+    "mixer-positive": ({"a": "{ nominal = 1.0, tol = '20%' }", "b": "{ nominal = 2.0, tol = '20%' }",
+                        "c": "{ nominal = 3.0, tol = '20%' }", "K": "{ nominal = -1.0, tol = '10%' }"},
+                       "transfer = 'K/((s+a)*(s+b)*(s+c))'", "feedback = 'positive'"),
+    "mixer-window": ({"a": "{ nominal = 1.0, tol = '20%' }", "b": "{ nominal = 2.0, tol = '20%' }",
+                      "c": "{ nominal = 3.0, tol = '20%' }"},
+                     "transfer = '1/((s+a)*(s+b)*(s+c))'", "gain_range = [5, inf]\noperating_gain = 20"),
+    "spindle": ({"K": "{ nominal = 1.0, tol = '10%' }", "a": "{ nominal = 1.0, tol = '20%' }",
+                 "b": "{ nominal = 30.0, tol = '10%' }", "c": "{ nominal = 200.0, tol = '10%' }"},
+                "transfer = 'K*(s+a)^2/(s^3*(s^2 + b*s + c))'", "operating_gain = 500"),
+    "boiler-rhp-zero": ({"T": "{ nominal = 0.2, tol = '20%' }", "J": "{ nominal = 1.0, tol = '20%' }",
+                         "a": "{ nominal = 3.0, tol = '10%' }"},
+                        "transfer = '(1 - T*s)/((s+1)*(J*s+1)*(s+a))'", ""),
+    "arm-resonance": ({"K": "{ nominal = 1.0, tol = '10%' }", "zz": "{ nominal = 0.03, low = 0.01, high = 0.05 }",
+                       "wz": "{ nominal = 8.0, tol = '10%' }", "zp": "{ nominal = 0.03, low = 0.01, high = 0.05 }",
+                       "wp": "{ nominal = 5.0, tol = '10%' }"},
+                      "transfer = 'K*(s^2 + 2*zz*wz*s + wz^2)/(s*(s+1)*(s^2 + 2*zp*wp*s + wp^2))'", ""),
+}
+
+
+@pytest.mark.parametrize("name", sorted(DEPENDENT))
+def test_dependent_families_bracket_dense_sampling(name):
+    cfg = _config(*DEPENDENT[name])
+    assert not is_interval_family(cfg)
+    res = certify(cfg, rtol=0.01, max_seconds=30)
+    assert res["method"] == "branch-and-bound" and res["status"] == "certified"
+    assert res["upper"] - res["lower"] <= 0.01 * res["upper"]
+    unc = cfg.uncertain
+    rng = np.random.default_rng(13)
+    vals = {p.name: p.low + rng.random(20000) * (p.high - p.low) for p in unc}
+    g = np.concatenate([_sweep_gains(cfg, vals), _sweep_gains(cfg, _corner_values(cfg))])
+    assert not np.isnan(g).any()
+    assert res["lower"] <= g.min() * (1 + 1e-12)
+    assert res["upper"] <= g.min() / (1 - 0.01)
+    worst = {p.name: np.array([res["worst_parameters"][p.name]]) for p in unc}
+    assert _sweep_gains(cfg, worst)[0] == pytest.approx(res["upper"], rel=1e-9)
+
+
+_SUBBOX_CACHE: dict = {}
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    name=st.sampled_from(sorted(DEPENDENT)),
+    u=st.lists(st.floats(0.0, 1.0), min_size=5, max_size=5),
+    w=st.lists(st.floats(0.0, 1.0), min_size=5, max_size=5),
+    seed=st.integers(0, 2**31 - 1),
+)
+def test_random_subboxes_are_sound_on_own_families(name, u, w, seed):
+    # soundness property: on any sub-box the Kharitonov bound on the project's enclosure is
+    # below the critical gain of every point of the sub-box, as computed by sweep.analysis
+    from sweep.certify import _config_functions
+
+    if name not in _SUBBOX_CACHE:
+        cfg = _config(*DEPENDENT[name])
+        _SUBBOX_CACHE[name] = (cfg, _config_functions(cfg))
+    cfg, (names, enclose, _, _) = _SUBBOX_CACHE[name]
+    unc = cfg.uncertain
+    p = len(unc)
+    low0 = np.array([q.low for q in unc])
+    high0 = np.array([q.high for q in unc])
+    a, b = np.minimum(u[:p], w[:p]), np.maximum(u[:p], w[:p])
+    lo = low0 + a * (high0 - low0)
+    hi = low0 + b * (high0 - low0)
+    ref = cfg.operating_gain if cfg.operating_gain is not None else cfg.gain_range[0]
+    bound, status = kharitonov_lower_bound(*enclose(lo[None], hi[None]), sigma=cfg.sigma,
+                                           gain_range=cfg.gain_range, reference=ref)
+    rng = np.random.default_rng(seed)
+    X = np.concatenate([lo + rng.random((200, p)) * (hi - lo), lo[None], hi[None]])
+    g = _sweep_gains(cfg, {q.name: X[:, i] for i, q in enumerate(unc)})
+    if status[0] == OK:
+        assert not np.isnan(g).any()
+        assert np.all(g >= bound[0] * (1 - 1e-12))
+
+
+def test_split_rules_agree_and_sensitivity_needs_fewer_boxes():
+    cfg = _conveyor_config()
+    widest = certify(cfg, rtol=0.01, split="widest")
+    sens = certify(cfg, rtol=0.01, split="sensitivity")
+    assert widest["status"] == sens["status"] == "certified"
+    assert widest["upper"] == pytest.approx(sens["upper"], rel=1e-12)
+    assert max(widest["lower"], sens["lower"]) <= sens["upper"]
+    assert sens["boxes"] < widest["boxes"]
+    with pytest.raises(ValueError):
+        certify(cfg, split="random")
+
+
+@pytest.mark.parametrize(
+    "status, first",
+    [
+        ("exact", "worst-case critical gain: 3 (exact)"),
+        ("certified", "worst-case critical gain between 2.9 and 3"),
+        ("budget", "worst-case critical gain between 2.9 and 3 (requested tolerance not reached)"),
+        ("unstable_at_reference", "worst-case critical gain: undefined (a point of the box is unstable"),
+        ("degree_invariance_fails", "worst-case critical gain: undefined (the loop's order changes"),
+        ("reference_unproven", "worst-case critical gain: not proven"),
+    ],
+)
+def test_format_certificate_per_status(status, first):
+    from sweep.certify import format_certificate
+
+    res = {"method": "branch-and-bound", "exact": status == "exact", "lower": 3.0 if status == "exact" else 2.9,
+           "upper": 3.0, "relative_gap": 0.0333, "boxes": 7, "worst_parameters": {"R": 1.5},
+           "status": status, "message": "why", "where": None, "elapsed": 0.1}
+    text = format_certificate(res)
+    assert text.splitlines()[0].startswith(first)
+    assert f"status: {status}: why" in text and "R = 1.5" in text
+
+
+def test_cli_certify_json_fields_and_bad_options(tmp_path, capsys):
+    # DESIGN section 6: certify --json carries method, exact, lower, upper, relative_gap, boxes,
+    # worst_parameters; a degree loss at the reference gain says so and where
+    import json
+
+    from sweep import cli, store
+
+    cfg = tmp_path / "valve.toml"
+    cfg.write_text("title = 'valve'\n[parameters]\na = { nominal = 0.5, tol = '20%' }\n"
+                   "b = { nominal = 2.0, tol = '10%' }\n[plant]\nnum = ['-a', 1]\nden = [1, 'b']\n"
+                   "[loop]\noperating_gain = 1.9\n")
+    out = tmp_path / "r.nc"
+    assert cli.main(["certify", str(cfg), "-o", str(out), "--json"]) == 0
+    body = json.loads(capsys.readouterr().out)
+    for key in ("method", "exact", "lower", "upper", "relative_gap", "boxes", "worst_parameters"):
+        assert key in body
+    assert body["status"] == "degree_invariance_fails" and body["lower"] is None and body["upper"] is None
+    assert set(body["where"]) == {"a", "b"} and store.certificate_path(out).exists()
+    assert cli.main(["certify", str(cfg), "-o", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "order changes" in text and "near a = " in text
+    for bad in (["--rtol", "0"], ["--rtol", "1.5"], ["--max-seconds", "0"]):
+        assert cli.main(["certify", str(cfg), "-o", str(out), *bad]) == 2
+        assert bad[0] in capsys.readouterr().err
