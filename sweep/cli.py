@@ -221,6 +221,9 @@ def _cmd_certify(args: argparse.Namespace) -> int:
     config = load_config(args.config)
     if not (0 < args.rtol < 1):
         raise InputError(f"--rtol must lie between 0 and 1, got {args.rtol:g}", field="--rtol")
+    if not (args.max_seconds > 0):
+        raise InputError(f"--max-seconds must be a positive number of seconds, got {args.max_seconds:g}",
+                         field="--max-seconds")
     bar = None
     progress = None
     if not args.quiet and not args.json:
