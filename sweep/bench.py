@@ -2,9 +2,11 @@
 
 `measure` times, side by side in one process and on the same variants and
 gains, the per-variant analysis, the locus tracing, the whole per-chunk work
-of `sweep run` and a bare batched-eigenvalue pass (companion matrices built
-and solved at every grid gain). Ratios between them are what to compare;
-absolute figures move with the machine's load.
+of `sweep run`, a bare batched-eigenvalue pass (companion matrices built and
+solved at every grid gain) and the naive per-variant `numpy.roots` loop.
+Ratios between them are what to compare; absolute figures move with the
+machine's load. `estimate_seconds` gives `sweep check` its run-time
+estimate from the same per-chunk work.
 """
 from __future__ import annotations
 
@@ -97,7 +99,32 @@ def _timed(fn, *args, **kwargs) -> float:
     return time.perf_counter() - t0
 
 
-def measure(config: Config | None = None, *, variants: int | None = None, budget_seconds: float = 40.0) -> dict[str, Any]:
+def roots_loop(N: np.ndarray, D: np.ndarray, sigma: int, gains: np.ndarray) -> np.ndarray:
+    """The naive route: a Python loop over variants and gains calling `numpy.roots`.
+
+    Returns the spectral abscissa (V, G).
+    """
+    V, width = D.shape
+    Np = np.zeros_like(D)
+    Np[:, width - N.shape[1]:] = N
+    out = np.empty((V, gains.size))
+    for v in range(V):
+        for j, k in enumerate(gains):
+            out[v, j] = np.roots(D[v] + sigma * k * Np[v]).real.max()
+    return out
+
+
+#: stages of `measure`, in report order, with their labels
+STAGES = {
+    "analysis": "analysis (boundaries, Routh, sketch, margins)",
+    "locus": "locus, every branch returned",
+    "chunk": "one chunk of 'sweep run' (keep none)",
+    "eigvals": "bare eigenvalue pass at every gain",
+    "roots_loop": "numpy.roots loop per variant and gain",
+}
+
+
+def measure(config: Config | None = None, *, variants: int | None = None, budget_seconds: float = 30.0) -> dict[str, Any]:
     """Measure throughput and project a night's run.
 
     Parameters
@@ -113,8 +140,22 @@ def measure(config: Config | None = None, *, variants: int | None = None, budget
     Returns
     -------
     dict
-        Variants per second of each stage, the ratios to the bare eigenvalue
-        pass, and projections for 1 h and 8 h on all cores.
+        Seconds and variants per second (one core) of each stage of `STAGES`
+        on the same variants and grid gains: the analysis alone, the locus
+        with every branch returned, one chunk as `sweep run` computes it
+        (assembly, locus and envelope, analysis; no loci kept), the bare
+        batched eigenvalue pass (companion matrices built and solved at every
+        grid gain), and a Python loop calling `numpy.roots` at every gain
+        (timed on a few variants and scaled). Also the ratio of each stage to
+        the eigenvalue pass, the analysis against an eigenvalue pass at a
+        single gain, and projections for 1 h and 8 h with ``-j`` all cores.
+
+    Notes
+    -----
+    The projection multiplies the one-core chunk rate by the number of cores
+    and by `PARALLEL_EFFICIENCY`, the fraction of a perfect speed-up that
+    whole runs reach here (measured by ``benchmarks/bench_run.py``; writing
+    and merging the result are inside it).
     """
     from . import analysis, locus, loop, runner
 
@@ -124,19 +165,22 @@ def measure(config: Config | None = None, *, variants: int | None = None, budget
 
     def stages(V: int) -> dict[str, float]:
         vs = _random_variants(config, V)
-        N, D = loop.assemble(config, vs.values)
-        kept = np.zeros(V, dtype=bool)
+        N, D = loop.assemble(config, vs.values, count=vs.count)
+        none = np.zeros(V, dtype=bool)
+        sub = min(V, 20)
         return {
             "analysis": _timed(analysis.analyze_stack, N, D, sigma=config.sigma, gain_range=config.gain_range,
                                operating_gain=config.operating_gain),
             "locus": _timed(locus.trace, N, D, sigma=config.sigma, gains=gains),
-            "chunk": _timed(runner.compute_chunk, config, vs, gains, kept),
+            "chunk": _timed(runner.compute_chunk, config, vs, gains, none),
             "eigvals": _timed(companion_eigvals_pass, N, D, config.sigma, gains),
+            "eigvals_one_gain": _timed(companion_eigvals_pass, N, D, config.sigma, gains[-1:]),
+            "roots_loop": _timed(roots_loop, N[:sub], D[:sub], config.sigma, gains) * V / sub,
         }
 
+    calib = stages(200)  # also compiles (or loads) the kernels and warms the imports
     if variants is None:
-        calib = stages(200)  # warms caches and imports too
-        per_variant = sum(calib.values()) / 200
+        per_variant = sum(calib.values()) / 200 - calib["roots_loop"] / 200 * (1 - 20 / 200)
         variants = int(np.clip(budget_seconds / max(per_variant, 1e-9), 500, 50000))
     times = stages(variants)
     rate = {k: variants / t for k, t in times.items()}
@@ -151,7 +195,8 @@ def measure(config: Config | None = None, *, variants: int | None = None, budget
         "cores": int(cores),
         "variants_per_second": rate,
         "seconds": times,
-        "ratio_to_eigvals_pass": {k: times[k] / times["eigvals"] for k in ("analysis", "locus", "chunk")},
+        "ratio_to_eigvals_pass": {k: times[k] / times["eigvals"] for k in STAGES},
+        "analysis_in_eigvals_passes_at_one_gain": times["analysis"] / times["eigvals_one_gain"],
         "parallel_efficiency_assumed": PARALLEL_EFFICIENCY,
         "variants_in_1h": int(per_hour),
         "variants_in_8h": int(8 * per_hour),
@@ -184,23 +229,27 @@ def estimate_seconds(config: Config, count: int) -> float:
 def format_result(result: dict[str, Any]) -> str:
     """Readable text of `measure`'s result."""
     lines = [
-        f"{result['config']}: degree {result['degree']}, {result['variants_timed']} variants x {result['gains']} gains, {result['cores']} core(s)",
+        f"{result['config']}: degree {result['degree']}, {result['variants_timed']} variants x "
+        f"{result['gains']} gains, {result['cores']} core(s)",
         "",
-        f"  {'stage':<28}{'variants/s (1 core)':>20}{'time / eigvals pass':>22}",
+        f"  {'stage (same variants and gains, one core)':<46}{'variants/s':>12}{'time / eigenvalue pass':>24}",
     ]
-    labels = {
-        "analysis": "analysis (boundaries, sketch)",
-        "locus": "locus tracing",
-        "chunk": "whole chunk of 'sweep run'",
-        "eigvals": "bare eigenvalue pass",
-    }
-    for key, label in labels.items():
-        ratio = result["ratio_to_eigvals_pass"].get(key, 1.0)
-        lines.append(f"  {label:<28}{result['variants_per_second'][key]:>20.0f}{ratio:>22.3f}")
+    for key, label in STAGES.items():
+        lines.append(f"  {label:<46}{result['variants_per_second'][key]:>12.0f}"
+                     f"{result['ratio_to_eigvals_pass'][key]:>24.3f}")
     lines += [
         "",
-        f"  projected with -j {result['cores']} (assuming {result['parallel_efficiency_assumed']:.0%} parallel efficiency):",
-        f"    1 hour   {result['variants_in_1h']:>14,d} variants",
-        f"    8 hours  {result['variants_in_8h']:>14,d} variants",
+        f"  the analysis costs {result['analysis_in_eigvals_passes_at_one_gain']:.2f} eigenvalue passes "
+        "at a single gain",
+        f"  a run chunk is {1 / result['ratio_to_eigvals_pass']['chunk']:.0f}x faster than the eigenvalue pass "
+        f"and {result['ratio_to_eigvals_pass']['roots_loop'] / result['ratio_to_eigvals_pass']['chunk']:.0f}x "
+        "faster than the numpy.roots loop",
+        "",
+        f"  projected with -j {result['cores']} ({result['parallel_efficiency_assumed']:.0%} of a perfect "
+        "speed-up, as measured for whole runs):",
+        f"    1 hour   {result['variants_in_1h']:>16,d} variants",
+        f"    8 hours  {result['variants_in_8h']:>16,d} variants",
+        "",
+        "  Absolute figures move with the machine's load; the ratios are what to compare.",
     ]
     return "\n".join(lines)

@@ -92,7 +92,8 @@ def _count(values: Mapping[str, np.ndarray]) -> int:
     return sizes.pop() if sizes else 1
 
 
-def assemble(config: Config, values: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+def assemble(config: Config, values: Mapping[str, np.ndarray], *,
+             count: int | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Open-loop numerator and denominator stacks for a batch of variants.
 
     Parameters
@@ -101,6 +102,9 @@ def assemble(config: Config, values: Mapping[str, np.ndarray]) -> tuple[np.ndarr
         The validated config.
     values
         Every parameter name mapped to an array of shape (V,).
+    count
+        V, when the caller knows it: a config without parameters has no
+        array to tell it, and its V variants are then V copies of the loop.
 
     Returns
     -------
@@ -108,7 +112,11 @@ def assemble(config: Config, values: Mapping[str, np.ndarray]) -> tuple[np.ndarr
         float64 arrays (V, m+1) and (V, n+1), highest power of s first, of
         ``C G H`` without cancellation. Widths depend only on the config.
     """
-    count = _count(values)
+    found = _count(values)
+    if count is None:
+        count = found
+    elif any(np.ndim(v) > 0 for v in values.values()) and found != count:
+        raise ValueError(f"parameter arrays hold {found} variants, expected {count}")
     env = {name: np.asarray(v, dtype=float) for name, v in values.items()}
     num_stack = np.ones((count, 1))
     den_stack = np.ones((count, 1))

@@ -188,7 +188,7 @@ def _recomputed_loci(ds: xr.Dataset, indices: Sequence[int], gains: np.ndarray) 
 
         cfg = parse_config(str(text), source="<result file>")
         values = {p.name: np.asarray(ds[p.name].values[list(indices)], float) for p in cfg.parameters}
-        N, D = assemble(cfg, values)
+        N, D = assemble(cfg, values, count=len(indices))
         roots = trace(N, D, sigma=cfg.sigma, gains=gains)
     except Exception:  # noqa: BLE001 - a figure without these two loci is still a figure
         return {}

@@ -314,7 +314,7 @@ def compute_chunk(config: Config, variants: Variants, gains: np.ndarray, kept: n
     """
     from . import analysis, locus, loop
 
-    N, D = loop.assemble(config, variants.values)
+    N, D = loop.assemble(config, variants.values, count=variants.count)
     # The grid holds the operating gain exactly, so the traced roots there are the
     # closed-loop poles, and the branches start at the open-loop poles: the analysis
     # need not solve those eigenproblems again.
