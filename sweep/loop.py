@@ -19,7 +19,7 @@ from .config import Config
 from .errors import InputError
 from .intervals import Interval
 from .polynomials import Rational
-from .warnings import CancellationWarning
+from .warnings import CancellationWarning, UnusedParameterWarning
 
 # How hard `validate` tries to prove that a leading coefficient keeps its sign.
 _MAX_BOXES = 4096
@@ -285,6 +285,7 @@ def validate(config: Config) -> None:
         _check_leading(config, part, dm, dn)
 
     _warn_cancellation(config)
+    _warn_unused(config)
 
 
 def _short(text: str, limit: int = 60) -> str:
@@ -585,6 +586,23 @@ def _warn_cancellation(config: Config) -> None:
             CancellationWarning(
                 f"{config.source}: the nominal open loop has a factor common to numerator and denominator (root {text}); "
                 "it is kept as a closed-loop mode, not cancelled"
+            ),
+            stacklevel=2,
+        )
+
+
+def _warn_unused(config: Config) -> None:
+    """Warn about uncertain parameters that no expression uses: they only multiply the designs."""
+    used: set[str] = set()
+    for part in _parts(config):
+        for _, tree in part.exprs:
+            used |= expressions.names(tree)
+    unused = [p.name for p in config.uncertain if p.name not in used]
+    if unused:
+        warnings.warn(
+            UnusedParameterWarning(
+                f"{config.source}: parameter(s) {', '.join(unused)} appear in no expression of the loop; "
+                "their tolerance only multiplies the corners and grid points; use them or remove them"
             ),
             stacklevel=2,
         )

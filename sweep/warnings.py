@@ -11,3 +11,7 @@ class CancellationWarning(SweepWarning):
 
 class IllConditionedWarning(SweepWarning):
     """A result could not be computed to full precision and was flagged."""
+
+
+class UnusedParameterWarning(SweepWarning):
+    """An uncertain parameter appears in no expression of the loop."""

@@ -236,8 +236,16 @@ def test_messages_pin_wording(tmp_path: Path):
 def test_cancellation_warns(tmp_path: Path):
     from sweep.warnings import CancellationWarning
 
-    text = GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'transfer = "(s + 2)/(s*(s + 2)*(b*s + 1))"')
+    text = GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'transfer = "(s + 2)/(s*(s + 2)*(b*s + a))"')
     with pytest.warns(CancellationWarning, match="common"):
+        parse_config(text, source="x.toml")
+
+
+def test_unused_uncertain_parameter_warns():
+    from sweep.warnings import UnusedParameterWarning
+
+    text = GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'transfer = "1/(s*(s + a)*(s + 1))"')
+    with pytest.warns(UnusedParameterWarning, match="parameter.s. b appear in no expression"):
         parse_config(text, source="x.toml")
 
 
