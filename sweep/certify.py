@@ -636,6 +636,8 @@ def branch_and_bound(
             break
         if n_boxes >= max_boxes or time.perf_counter() - t0 > max_seconds:
             state = "budget"
+            spent = (f"box budget ({max_boxes} boxes)" if n_boxes >= max_boxes
+                     else f"time budget ({max_seconds:g} s)")
             break
         K = min(batch, B_L.size, max(1, (max_boxes - n_boxes) // 2))
         sel = np.argpartition(B_L, K - 1)[:K] if K < B_L.size else np.arange(B_L.size)
@@ -683,8 +685,11 @@ def branch_and_bound(
     lower = open_lower()
     if state == "certified":
         return BoundResult(lower, best_val, n_boxes, best_x, state, "bounds within the requested tolerance")
-    msg = ("boxes shrank to points without closing the gap" if state == "stalled"
-           else "budget exhausted before the requested tolerance was reached")
+    if state == "stalled":
+        msg = "boxes shrank to points without closing the gap"
+    else:
+        msg = (f"{spent} spent before the requested tolerance was reached; allow more time or boxes, "
+               "or a looser tolerance")
     bad_st = status != OK
     if bad_st.any():
         # report the smallest unresolved box: where the proof fails
