@@ -958,7 +958,7 @@ def _config_functions(config: Any):
     ref = _reference_gain(config)
 
     def point_gains(X: np.ndarray) -> np.ndarray:
-        N, D = loop.assemble(config, values(X))
+        N, D = loop.assemble(config, values(X), count=X.shape[0])
         gr = tuple(config.gain_range)
         g = pencil_critical_gains(N, D, sigma=config.sigma, gain_range=gr, reference=ref)
         bad = np.isnan(g)
@@ -986,7 +986,7 @@ def _kharitonov_route(config, names, enclose, point_gains, values, low, high, re
     for i in range(p):
         X[2 * i + 1, i] = high[i]
         X[2 * i, i] = low[i]
-    N, D = loop.assemble(config, values(X))
+    N, D = loop.assemble(config, values(X), count=X.shape[0])
     # the ends must span each coefficient's enclosure (range attained at the parameter ends)
     hullN = (N.min(axis=0), N.max(axis=0))
     hullD = (D.min(axis=0), D.max(axis=0))
@@ -1041,7 +1041,7 @@ def _lead_at_reference(config: Any, values: Callable[[np.ndarray], dict], ref: f
         return None
 
     def lead(X: np.ndarray) -> np.ndarray:
-        N, D = loop.assemble(config, values(X))
+        N, D = loop.assemble(config, values(X), count=X.shape[0])
         return D[:, 0] + config.sigma * ref * N[:, 0]
 
     return lead
@@ -1078,7 +1078,7 @@ def _full_critical_gain(config: Any, values: Callable[[np.ndarray], dict], x: np
     """Critical gain of one point by `sweep.analysis` (the routine the sweep itself uses)."""
     from sweep import analysis, loop
 
-    N, D = loop.assemble(config, values(np.asarray(x, float)[None]))
+    N, D = loop.assemble(config, values(np.asarray(x, float)[None]), count=1)
     return float(analysis.analyze_stack(N, D, sigma=config.sigma, gain_range=tuple(config.gain_range),
                                          operating_gain=config.operating_gain)["critical_gain"][0])
 
@@ -1223,7 +1223,7 @@ def certify(
     res = branch_and_bound(
         enclose, point_gains, low, high, sigma=config.sigma, gain_range=gr, reference=ref,
         rtol=rtol, max_boxes=max_boxes, max_seconds=max_seconds, progress=progress,
-        coefficients=lambda X: loop.assemble(config, values(X)), split=split,
+        coefficients=lambda X: loop.assemble(config, values(X), count=X.shape[0]), split=split,
     )
     where = None
     status, lower, upper = res.status, res.lower, res.upper

@@ -1210,3 +1210,15 @@ def test_cli_certify_json_fields_and_bad_options(tmp_path, capsys):
     for bad in (["--rtol", "0"], ["--rtol", "1.5"], ["--max-seconds", "0"]):
         assert cli.main(["certify", str(cfg), "-o", str(out), *bad]) == 2
         assert bad[0] in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("plant, expected", [("num = [2]\nden = [1, 3, 3, 1]", 4.0),
+                                             ("transfer = '2/(s+1)^3'", 4.0),
+                                             ("num = [-1, 1]\nden = [1, 2]", 1.0)])
+def test_config_without_parameters(plant, expected):
+    # no [parameters] table at all: the box is one point (2/(s+1)^3: 8/2 = 4, Routh, from memory;
+    # (1 - s)/(s + 2): P = (1 - k) s + 2 + k loses its leading coefficient at k = 1)
+    cfg = parse_config(f"title = 'bare loop'\n[plant]\n{plant}\n", source="bare.toml")
+    res = certify(cfg)
+    assert res["status"] in ("exact", "certified") and res["worst_parameters"] == {}
+    assert res["lower"] <= expected * (1 + 1e-12) and res["upper"] == pytest.approx(expected, rel=1e-12)
