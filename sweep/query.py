@@ -485,7 +485,7 @@ def summarize(ds: xr.Dataset, certificate: dict | None = None) -> dict[str, Any]
           stable loops, ``lower_gain_margin`` (worst = largest); or None;
         - ``flags``: counts of ``ill_conditioned``, ``routh_disagrees`` and
           ``fixed_axis_root`` variants;
-        - ``certified`` {``lower``, ``upper``, ``method``, ``exact``} or None.
+        - ``certified`` {``lower``, ``upper``, ``method``, ``exact``, ``status``} or None.
 
     Raises
     ------
@@ -635,10 +635,22 @@ def worst_variants(ds: xr.Dataset, count: int = 10) -> xr.Dataset:
     return ds[names].isel(variant=order).load()
 
 
+# how a stored certificate's bracket reads, by its status (see sweep.certify)
+_CERT_KIND = {
+    "certified": "guaranteed bounds",
+    "budget": "guaranteed bounds, tolerance not reached",
+    "stalled": "guaranteed bounds, tolerance not reached",
+    "reference_unproven": "not proven: stability at the reference gain could not be shown",
+    "degree_invariance_fails": "undefined: the degree drops inside the box",
+    "unstable_at_reference": "some variant is unstable at the reference gain",
+}
+
+
 def _certified(ds: xr.Dataset, certificate: dict | None) -> dict | None:
     if certificate is not None:
         return {"lower": _f(certificate.get("lower")), "upper": _f(certificate.get("upper")),
-                "method": certificate.get("method"), "exact": bool(certificate.get("exact", False))}
+                "method": certificate.get("method"), "exact": bool(certificate.get("exact", False)),
+                "status": certificate.get("status")}
     a = ds.attrs
     if "certified_lower" in a or "certified_upper" in a:
         return {"lower": _f(a.get("certified_lower")), "upper": _f(a.get("certified_upper")),
@@ -732,7 +744,9 @@ def format_summary(summary: dict, ds: xr.Dataset) -> str:
             wrows.append(("closed-loop poles at the operating gain", _poles(w["closed_loop_poles"])))
         cert = summary.get("certified")
         if cert:
-            kind = "exact" if cert.get("exact") else "guaranteed bounds"
+            kind = _CERT_KIND.get(cert.get("status"), "guaranteed bounds")
+            if cert.get("exact"):
+                kind = "exact"
             wrows.append(("certified worst case",
                           f"[{_num(cert['lower'])}, {_num(cert['upper'])}] ({cert.get('method')}, {kind})"))
         lines += _table(wrows, indent=2)

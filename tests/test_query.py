@@ -396,8 +396,9 @@ def test_no_operating_quantities(datasets):
 def test_certified_bracket(datasets):
     base = datasets["winch"]
     s = summarize(base, certificate={"lower": 8.7, "upper": 8.8, "method": "branch-and-bound",
-                                      "exact": False})
-    assert s["certified"] == {"lower": 8.7, "upper": 8.8, "method": "branch-and-bound", "exact": False}
+                                      "exact": False, "status": "certified"})
+    assert s["certified"] == {"lower": 8.7, "upper": 8.8, "method": "branch-and-bound", "exact": False,
+                              "status": "certified"}
     ds = base.copy()
     ds.attrs.update(certified_lower=8.78, certified_upper=8.78, certified_method="kharitonov",
                     certified_exact=1)
@@ -405,7 +406,12 @@ def test_certified_bracket(datasets):
     assert s2["certified"]["exact"] is True and s2["certified"]["method"] == "kharitonov"
     assert summarize(base)["certified"] is None
     text = format_summary(s, base)
-    assert "certified worst case" in text and "8.7" in text
+    assert "certified worst case" in text and "8.7" in text and "guaranteed bounds" in text
+    # an unproven certificate is not called guaranteed
+    unproven = summarize(base, certificate={"lower": None, "upper": 8.8, "method": "branch-and-bound",
+                                             "exact": False, "status": "reference_unproven"})
+    text = format_summary(unproven, base)
+    assert "not proven" in text and "guaranteed" not in text
 
 
 def test_format_summary(datasets):
