@@ -4,17 +4,23 @@
 are cut into fixed chunks of ``config.sweep.chunk_size``; chunk ``i`` always
 holds variants ``i*chunk_size ... (i+1)*chunk_size - 1``. Each chunk is
 computed by ONE pure function, `compute_chunk`, and written as its own part
-file ``OUT.parts/chunk-00000.nc ...``; when all parts exist they are merged
-into ``OUT`` (`sweep.store.merge_parts`) and, only after the merge has
-succeeded, the parts folder is deleted.
+file ``OUT.parts/chunk-00000.nc ...``; each part is merged into the result
+as soon as it is written, the result is published as ``OUT`` once all are
+in and, only then, the parts folder is deleted.
 
 Who computes and who writes (``-j N``): this process and ``N - 1`` local
-workers (joblib's loky processes) take chunks from one queue, and each of
-them writes the parts it computed, so neither the writing nor the transfer
-of results goes through one process. The workers are started first thing,
-so their start-up overlaps the variant generation and the gain grid. With
-a Dask scheduler the cluster's workers compute and this process writes
-every part (the workers may not see this file system).
+workers (joblib's loky process executor) run the same loop over the list
+of missing chunks: claim the next free chunk (an exclusive claim file),
+compute it, write its part. Each writes the parts it computes, so neither
+the writing nor the transfer of results goes through one process, and no
+process waits for another to hand out work. This process reads the
+workers' parts back between its own chunks and merges every part into the
+result as soon as it exists (`sweep.store.ResultWriter`), so the end of
+the run only publishes the file. Workers are forked once this process has
+loaded the compiled kernels when that is safe (`_start_method`), else they
+start as fresh interpreters before the run's set-up. With a Dask scheduler
+the cluster's workers compute and this process writes every part (the
+workers may not see this file system).
 
 Files next to ``OUT``:
 
@@ -23,20 +29,26 @@ Files next to ``OUT``:
     grid and the kept-locus variant indices. Both are computed once per run
     (from the nominal and over the whole sweep) and reused exactly by a
     resumed run.
+``OUT.parts/.run-ID``, ``OUT.parts/.claim-ID-NNNNN``
+    which chunks the processes of the running run have taken (see above).
 ``OUT.lock``
     pid and start time of the run that owns ``OUT``. A second run is refused
     while that process is alive; a lock whose process no longer exists (or
     whose pid now belongs to a process started at another time) is stale and
     taken over, with a line in the log.
 ``OUT.log``
-    plain text, appended: start, config hash, each chunk with its time,
-    merge, end and totals.
+    plain text, appended: start, config hash, set-up time, each chunk with
+    its compute, write and merge times (and which worker computed it), the
+    final merge step, end and totals.
 
 A rerun (with or without ``resume=True``) checks every existing part (it
-must be readable, carry this config's sha256 and hold exactly its chunk's
-variants) and computes only the missing or bad ones. A parts folder written
-for another config is refused. If ``OUT`` is already complete for this
-config (same sha256, no parts folder) the run returns it without work.
+must be readable, carry this config's sha256, hold exactly its chunk's
+variants with this run's parameter values, gain grid and kept loci) and
+computes only the missing or bad ones. A parts folder written for another
+config is refused; an unreadable manifest is written again (the parts are
+checked against it). If ``OUT`` is already complete for this config (same
+sha256 and sweep version) the run returns it without work, removing a parts
+folder left by a run stopped after its merge.
 
 Test hook (for the kill-and-resume tests only, never needed in use): the
 environment variable ``SWEEP_TEST_PAUSE`` = ``chunks:N`` makes the run write
@@ -243,7 +255,7 @@ def nominal_gains(config: Config) -> np.ndarray:
     """
     from . import analysis, locus, loop
 
-    N, D = loop.assemble(config, config.nominal_values())
+    N, D = loop.assemble(config, config.nominal_values(), count=1)
     res = analysis.analyze_stack(
         N, D, sigma=config.sigma, gain_range=config.gain_range, operating_gain=config.operating_gain
     )
@@ -373,8 +385,71 @@ def _compute_and_write(fn: Callable, config: Config, i: int, variants: Variants,
     part = fn(config, variants, gains, kept)
     t1 = time.perf_counter()
     part.attrs.update(attrs)
+    part.attrs["compute_seconds"] = t1 - t0  # for the run's log when a worker computed it
     store.write_part(part, path)
     return i, part, t1 - t0, time.perf_counter() - t1
+
+
+class _Claims:
+    """Which process computes which chunk of a run: the first to create the chunk's claim file.
+
+    Files in the parts folder, named after the run: ``.run-ID`` exists while
+    the run accepts work (the run removes it when it stops, and its workers
+    then stop taking chunks), ``.claim-ID-00005`` is created exclusively
+    (``O_EXCL``) by the one process that computes chunk 5. Leftovers of a
+    killed run are removed by the next run (`_remove_leftovers`).
+    """
+
+    def __init__(self, parts: Path, run: str):
+        self.parts, self.run = parts, run
+        self.marker = parts / f".run-{run}"
+
+    def open(self) -> None:
+        self.marker.touch()
+
+    def close(self) -> None:
+        try:
+            self.marker.unlink()
+        except FileNotFoundError:
+            pass
+
+    def active(self) -> bool:
+        return self.marker.exists()
+
+    def take(self, i: int) -> bool:
+        try:
+            os.close(os.open(self.parts / f".claim-{self.run}-{i:05d}", os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644))
+        except FileExistsError:
+            return False
+        return True
+
+
+def _worker_loop(fn: Callable, config: Config, gains: np.ndarray, mask: np.ndarray,
+                 ranges: list[tuple[int, int]], todo: list[int], parts: Path, run: str, owner: int) -> int:
+    """A local worker's whole share of a run: claim the next free chunk, compute it, write it; repeat.
+
+    The workers and the run's own process take chunks from the same list in
+    the same order, so none waits for another to hand out work and the
+    last chunks are shared out one at a time. The variants are generated
+    again here (deterministic from the config; the run checks every part's
+    parameter values against its own). Returns the number of chunks done.
+    """
+    claims = _Claims(parts, run)
+    variants = None
+    done = 0
+    for i in todo:
+        if os.getppid() != owner or not claims.active():
+            break  # the run has stopped (finished, failed or killed)
+        if not claims.take(i):
+            continue
+        if variants is None:
+            variants = designs.generate(config)
+        a, b = ranges[i]
+        attrs = {"config_sha256": config.sha256, "variant_start": a, "variant_stop": b, "chunk": i,
+                 "computed_by": os.getpid()}
+        _compute_and_write(fn, config, i, variants.slice(a, b), gains, mask[a:b], _part_path(parts, i), attrs)
+        done += 1
+    return done
 
 
 def _compute(fn: Callable, config: Config, i: int, variants: Variants, gains: np.ndarray,
@@ -491,7 +566,7 @@ def _remove_leftovers(out: Path, parts: Path, log: _Log) -> None:
     """Delete temporary files of killed runs (we hold the lock, so none is being written)."""
     found = list(out.parent.glob(f".{out.name}.tmp-*"))
     if parts.exists():
-        found += list(parts.glob(".*.tmp-*"))
+        found += list(parts.glob(".*.tmp-*")) + list(parts.glob(".claim-*")) + list(parts.glob(".run-*"))
     for f in found:
         try:
             f.unlink()
@@ -549,95 +624,110 @@ def _start_method() -> str:
 
 
 class _Pool:
-    """Local worker processes (joblib's loky executor).
+    """Local worker processes (joblib's loky process executor).
 
     Started as early as the start method allows: a "loky" pool before the
     run's set-up, so the workers import and load the kernels while this
     process generates the variants and the gain grid; a "fork" pool once
-    this process has loaded them itself. The executor is joblib's reusable
-    one: a later run in the same process finds the workers ready.
+    this process has loaded them itself.
     """
 
     def __init__(self, workers: int, jobs: int, config: Config, method: str):
+        from joblib.externals.loky.process_executor import ProcessPoolExecutor
+
         self.workers, self.method = workers, method
+        # The run's own executor, closed at its end (no state carried from one run to the next),
+        # with no idle timeout: a worker is never started again in the middle of the run
+        # (for "fork": never forked while threads run and the result file is open).
         if method == "fork":
             import multiprocessing
 
-            from joblib.externals.loky.process_executor import ProcessPoolExecutor
-
-            # this run's own executor, with no idle timeout: a worker is never forked again
-            # later, when threads run and the result file is open; closed at the end of the run
             self.executor = ProcessPoolExecutor(max_workers=workers, context=multiprocessing.get_context("fork"),
                                                 initializer=_worker_init)
         else:
-            from joblib.externals.loky import get_reusable_executor
+            from joblib.externals.loky.backend.context import get_context
 
             threads = str(max(1, _cpu_count() // jobs))  # no oversubscription by BLAS threads
             env = {k: threads for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
-            self.executor = get_reusable_executor(max_workers=workers, env=env, initializer=_worker_init)
-        self._warm = [self.executor.submit(_warm_up, config) for _ in range(workers)]
+            self.executor = ProcessPoolExecutor(max_workers=workers, context=get_context("loky"), env=env,
+                                                initializer=_worker_init)
+            for _ in range(workers):  # load the kernels while the run sets up
+                self.executor.submit(_warm_up, config)
 
-    def ready(self) -> int:
-        """How many workers have finished starting up (their warm-up task is done)."""
-        return sum(f.done() for f in self._warm)
-
-    def submit(self, *args):
-        return self.executor.submit(_compute_and_write, *args)
+    def start(self, *args) -> list:
+        """One `_worker_loop` per worker; returns their futures."""
+        return [self.executor.submit(_worker_loop, *args) for _ in range(self.workers)]
 
     def kill(self) -> None:
         self.executor.shutdown(wait=False, kill_workers=True)
 
     def close(self) -> None:
-        """End of the run: a forked pool goes (its workers exit), a reusable one stays for the next run."""
-        if self.method == "fork":
-            self.executor.shutdown(wait=False)
+        """End of the run: the workers leave once done with what they hold (nothing to claim any more)."""
+        self.executor.shutdown(wait=False)
 
 
-def _run_local(tasks: deque, make: Callable, pool: _Pool | None, done: Callable) -> None:
-    """Compute the chunks in ``tasks``; ``done(i, part, compute_s, write_s)`` after each one.
+def _run_local(todo: deque, make: Callable, pool: _Pool | None, done: Callable, *, worker_args: tuple = (),
+               parts: Path | None = None, check: Callable | None = None) -> None:
+    """Compute the chunks in ``todo``; ``done(i, part, compute_s, write_s)`` after each one.
 
-    This process computes chunks too, taking the next chunk from the same
-    queue as the workers; each writes the parts it computes. A chunk handed
-    to a worker cannot be taken back, so a worker that is still starting
-    gets at most one chunk (none when only a few are left: this process may
-    finish them before the worker is ready); once it is ready it gets up to
-    two, so that it never waits while this process computes a chunk of its
-    own.
+    Without a pool, one after the other in this process. With one, this
+    process and every worker run the same loop over the same list (see
+    `_worker_loop`): claim the next free chunk, compute it, write its part.
+    Between its own chunks this process reads the parts the workers have
+    finished (``check`` validates them) and passes them to ``done``.
     """
     if pool is None:
-        while tasks:
-            done(*_compute_and_write(*make(tasks.popleft())))
+        while todo:
+            done(*_compute_and_write(*make(todo.popleft())))
         return
     from concurrent.futures import FIRST_COMPLETED, wait
 
-    owner = os.getpid()
-    pending: set = set()
+    order = list(todo)
+    todo.clear()
+    run = f"{os.getpid()}-{time.time_ns()}"
+    claims = _Claims(parts, run)
+    claims.open()
+    futures = pool.start(*worker_args, order, parts, run, os.getpid())
+    others: list[int] = []  # chunks claimed by a worker, not yet read back
+
+    def collect() -> None:
+        for i in list(others):
+            path = _part_path(parts, i)
+            if path.exists():  # renamed into place: complete
+                t0 = time.perf_counter()
+                part = check(i, path)
+                others.remove(i)
+                done(i, part, float(part.attrs.get("compute_seconds", float("nan"))), None, time.perf_counter() - t0)
+        for fut in futures:
+            if fut.done():
+                fut.result()  # a worker's failure is re-raised here, with its own type
+
     try:
-        while tasks or pending:
-            ready = pool.ready()
-            starting = pool.workers - ready if len(tasks) > 2 * (pool.workers + 1) else 0
-            while tasks and len(pending) < 2 * ready + starting:
-                pending.add(pool.submit(*make(tasks.popleft()), owner))
-            for fut in [f for f in pending if f.done()]:
-                pending.discard(fut)
-                done(*fut.result())  # a worker's failure is re-raised here, with its own type
-            if tasks:
-                done(*_compute_and_write(*make(tasks.popleft())))
-            elif pending:
-                wait(pending, return_when=FIRST_COMPLETED)
+        for i in order:
+            collect()
+            if claims.take(i):
+                done(*_compute_and_write(*make(i)))
+            else:
+                others.append(i)
+        while others:
+            running = [f for f in futures if not f.done()]
+            if running:
+                wait(running, timeout=0.02, return_when=FIRST_COMPLETED)
+            collect()
+            if others and all(f.done() for f in futures):
+                collect()  # a part renamed just before its worker returned
+                if others:
+                    raise SweepError(f"chunk {others[0]} was taken by a worker that ended without writing it")
     except KeyboardInterrupt:
+        claims.close()
         pool.kill()  # stop at once; a part cut short is only a temporary file, removed next time
         raise
     except BaseException:
-        # keep what is already being computed: let it finish (its part is written), then re-raise
-        for fut in pending:
-            fut.cancel()
-        wait(pending)
-        for fut in pending:
-            if not fut.cancelled() and fut.exception() is None:
-                i, _, c, w = fut.result()
-                done(i, None, c, w)  # written and logged; the merge is abandoned anyway
+        claims.close()  # the workers take no new chunk; let the ones running finish (their parts are kept)
+        wait(futures)
         raise
+    finally:
+        claims.close()
 
 
 def _run_dask(tasks: deque, make: Callable, scheduler: str, write: Callable, done: Callable) -> None:
@@ -795,14 +885,23 @@ def _compute_and_merge(config: Config, out: Path, parts: Path, log: _Log, varian
             writer.sync()
             merge_pause(writer.added)
 
+    def check(i: int, path: Path) -> store.Part:
+        """A part on disk, read and checked against this run (`store.PartError` if it does not belong)."""
+        a, b = ranges[i]
+        part = store.read_part(path, config_sha256=config.sha256, start=a, stop=b)
+        _check_part(part, path.name, gains, kept[(kept >= a) & (kept < b)])
+        for name, values in variants.values.items():
+            if name not in part or not np.array_equal(part[name], values[a:b]):
+                raise store.PartError(f"{path.name}: parameter {name} differs from this run's variants")
+        return part
+
     try:
         todo, done_variants = deque(), 0
         for i, (a, b) in enumerate(ranges):
             p = _part_path(parts, i)
             if p.exists():
                 try:
-                    part = store.read_part(p, config_sha256=config.sha256, start=a, stop=b)
-                    _check_part(part, p.name, gains, kept[(kept >= a) & (kept < b)])
+                    part = check(i, p)
                 except store.PartError as err:
                     log(f"chunk {i}: {err}; computing it again")
                     p.unlink()
@@ -813,7 +912,7 @@ def _compute_and_merge(config: Config, out: Path, parts: Path, log: _Log, varian
             todo.append(i)
         log(f"chunks: {n_chunks} total, {n_chunks - len(todo)} valid on disk, {len(todo)} to compute")
         _compute_all(config, parts, log, variants, gains, mask, ranges, todo,
-                     pool if len(todo) > 1 else None, scheduler, quiet, done_variants, merge, t_start)
+                     pool if len(todo) > 1 else None, scheduler, quiet, done_variants, merge, check, t_start)
         t0 = time.perf_counter()
         writer.finish(store.result_attrs(config, created=_now(), sweep_version=__version__))
         return time.perf_counter() - t0
@@ -824,7 +923,7 @@ def _compute_and_merge(config: Config, out: Path, parts: Path, log: _Log, varian
 def _compute_all(config: Config, parts: Path, log: _Log, variants: Variants, gains: np.ndarray,
                  mask: np.ndarray, ranges: list[tuple[int, int]], todo: deque, pool: _Pool | None,
                  scheduler: str | None, quiet: bool, done_variants: int, merge: Callable,
-                 t_start: float) -> None:
+                 check: Callable, t_start: float) -> None:
     """Compute, write and merge the chunks in ``todo``, with progress bar and log."""
     from tqdm import tqdm
 
@@ -846,14 +945,17 @@ def _compute_all(config: Config, parts: Path, log: _Log, variants: Variants, gai
                disable=quiet, file=sys.stderr, desc="sweep", dynamic_ncols=True)
     n_todo, written = len(todo), 0
 
-    def done(i: int, part: store.Part | None, compute_s: float, write_s: float) -> None:
+    def done(i: int, part: store.Part | None, compute_s: float, write_s: float | None, read_s: float = 0.0) -> None:
+        """Log a finished chunk and merge it. ``write_s`` None: a worker wrote it, read back in ``read_s``."""
         nonlocal written
         a, b = ranges[i]
         written += 1
         t0 = time.perf_counter()
         if part is not None:
             merge(part, _part_path(parts, i).name)
-        log(f"chunk {i} variants {a}..{b - 1} computed in {compute_s:.3f} s, written in {write_s:.3f} s, "
+        how = (f"written in {write_s:.3f} s" if write_s is not None
+               else f"by worker {part.attrs.get('computed_by', '?')}, read back in {read_s:.3f} s")
+        log(f"chunk {i} variants {a}..{b - 1} computed in {compute_s:.3f} s, {how}, "
             f"merged in {time.perf_counter() - t0:.3f} s")
         bar.update(b - a)
         bar.set_postfix_str(f"chunk {n_chunks - n_todo + written}/{n_chunks}", refresh=False)
@@ -868,7 +970,8 @@ def _compute_all(config: Config, parts: Path, log: _Log, variants: Variants, gai
         if scheduler:
             _run_dask(todo, make, scheduler, write, done)
         else:
-            _run_local(todo, make, pool, done)
+            _run_local(todo, make, pool, done, worker_args=(fn, config, gains, mask, ranges), parts=parts,
+                       check=check)
     except KeyboardInterrupt:
         raise
     except BaseException as err:

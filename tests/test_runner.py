@@ -441,10 +441,15 @@ def test_joblib_worker_exception_reraised(tmp_path, monkeypatch, method):
     cfg = load_config(write_config(tmp_path))
     real = runner.compute_chunk
     here = os.getpid()
+    flag = tmp_path / "a worker took a chunk"
 
     def failing(config, variants, gains, kept):  # a closure: joblib ships it by value
         if os.getpid() != here:  # only in the worker (this process computes chunks too)
+            flag.touch()
             raise ZeroDivisionError("chunk failed on purpose")
+        t0 = time.time()  # wait for the worker (a fresh interpreter takes a while to start)
+        while not flag.exists() and time.time() - t0 < 60:
+            time.sleep(0.02)
         return real(config, variants, gains, kept)
 
     monkeypatch.setattr(runner, "compute_chunk", failing)
