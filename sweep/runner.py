@@ -424,15 +424,30 @@ class _Claims:
         return True
 
 
+# The variants of the run in progress in this process, by config sha256: set by the run
+# before it forks its workers (they inherit them), filled by a fresh worker's warm-up.
+_VARIANTS: dict[str, Variants] = {}
+
+
+def _variants_of(config: Config) -> Variants:
+    """The run's variants in a worker: inherited, or generated again (deterministic from the config)."""
+    variants = _VARIANTS.get(config.sha256)
+    if variants is None:
+        _VARIANTS.clear()
+        variants = _VARIANTS[config.sha256] = designs.generate(config)
+    return variants
+
+
 def _worker_loop(fn: Callable, config: Config, gains: np.ndarray, mask: np.ndarray,
                  ranges: list[tuple[int, int]], todo: list[int], parts: Path, run: str, owner: int) -> int:
     """A local worker's whole share of a run: claim the next free chunk, compute it, write it; repeat.
 
     The workers and the run's own process take chunks from the same list in
     the same order, so none waits for another to hand out work and the
-    last chunks are shared out one at a time. The variants are generated
-    again here (deterministic from the config; the run checks every part's
-    parameter values against its own). Returns the number of chunks done.
+    last chunks are shared out one at a time. The variants are the run's
+    own when the worker was forked, else generated again (deterministic from
+    the config; the run checks every part's parameter values against its
+    own). Returns the number of chunks done.
     """
     claims = _Claims(parts, run)
     variants = None
@@ -443,7 +458,7 @@ def _worker_loop(fn: Callable, config: Config, gains: np.ndarray, mask: np.ndarr
         if not claims.take(i):
             continue
         if variants is None:
-            variants = designs.generate(config)
+            variants = _variants_of(config)
         a, b = ranges[i]
         attrs = {"config_sha256": config.sha256, "variant_start": a, "variant_stop": b, "chunk": i,
                  "computed_by": os.getpid()}
@@ -470,6 +485,7 @@ def _warm_up(config: Config) -> None:
     try:
         nominal = Variants(values=config.nominal_values(), design=np.array(["nominal"]))
         compute_chunk(config, nominal, nominal_gains(config), np.ones(1, dtype=bool))
+        _variants_of(config)
     except Exception:
         pass
 
@@ -850,12 +866,15 @@ def _run_locked(config: Config, out: Path, parts: Path, log: _Log, count: int, s
         variants = designs.generate(config)
         man = _manifest(config, out, parts, variants, log)
         if method == "fork":
-            _warm_up(config)  # this process loads the kernels once; the forked workers inherit them
+            _VARIANTS.clear()
+            _VARIANTS[config.sha256] = variants  # the forked workers inherit the variants ...
+            _warm_up(config)  # ... and the compiled kernels, loaded here once
             pool = _Pool(workers, jobs, config, method)
         if pool is not None:
             log(f"{workers} local worker(s) started ({method})")
         t_merge = _compute_and_merge(config, out, parts, log, variants, man, pool, scheduler, quiet, t_start)
     finally:
+        _VARIANTS.clear()
         if pool is not None:
             pool.close()
     _pause_hook("cleanup", log)(0)
