@@ -101,3 +101,40 @@ def test_merge_refuses_gaps(tmp_path):
     with pytest.raises(store.PartError, match="expected 4"):
         store.merge_parts([a, b], tmp_path / "r.nc", {})
     assert not (tmp_path / "r.nc").exists()
+
+
+def test_result_writer_any_order_equals_merge(tmp_path):
+    """Parts added as they arrive, in any order, give the file merged in chunk order (the mean too, bit for bit)."""
+    parts = [fake_part(a, min(a + 4, 10), kept=[0, 5, 9]) for a in range(0, 10, 4)]
+    paths = [store.write_part(d, tmp_path / f"chunk-{i:05d}.nc") for i, d in enumerate(parts)]
+    ordered = store.merge_parts(paths, tmp_path / "ordered.nc", {"title": "pump"})
+    writer = store.ResultWriter(tmp_path / "any.nc", total=10, kept=np.array([0, 5, 9]))
+    for i in (2, 0, 1):
+        writer.add(store.read_part(paths[i]), paths[i].name)
+    assert (tmp_path / "any.nc").exists() is False  # only the temporary file so far
+    writer.finish({"title": "pump"})
+    with xr.open_dataset(ordered) as a, xr.open_dataset(tmp_path / "any.nc") as b:
+        xr.testing.assert_identical(a.load(), b.load())
+
+
+def test_result_writer_refusals(tmp_path):
+    def writer():
+        return store.ResultWriter(tmp_path / "r.nc", total=10, kept=np.array([0, 5]))
+
+    w = writer()
+    w.add(fake_part(0, 4, kept=[0]))
+    with pytest.raises(store.PartError, match="already merged"):
+        w.add(fake_part(0, 4, kept=[0]))
+    with pytest.raises(store.PartError, match="kept loci"):
+        w.add(fake_part(4, 8, kept=[]))  # variant 5 must keep its locus
+    bad = fake_part(4, 8, kept=[5])
+    del bad.variables["critical_gain"]
+    with pytest.raises(store.PartError, match="other variables"):
+        w.add(bad)
+    with pytest.raises(store.PartError, match="outside the sweep"):
+        w.add(fake_part(8, 12, kept=[]))
+    w.add(fake_part(8, 10, kept=[]))
+    with pytest.raises(store.PartError, match="variants from 4 are missing"):
+        w.finish({})
+    w.abort()
+    assert sorted(p.name for p in tmp_path.iterdir()) == []  # no result, no temporary file
