@@ -132,6 +132,27 @@ def _tick(v: float) -> str:
     return f"{v:g}"
 
 
+def _linear_eng_formatter():
+    """Tick labels of a linear axis in one engineering unit for all ticks (0, 5k, 10k, not 0, 5000, 10k)."""
+    from matplotlib.ticker import Formatter
+
+    class _Eng(Formatter):
+        div, suffix = 1.0, ""
+
+        def set_locs(self, locs):
+            top = max((abs(v) for v in locs), default=0.0)
+            self.div, self.suffix = 1.0, ""
+            for div, suffix in ((1e12, "T"), (1e9, "G"), (1e6, "M"), (1e3, "k")):
+                if top >= 10 * div:
+                    self.div, self.suffix = div, suffix
+                    break
+
+        def __call__(self, v, pos=None):
+            return "0" if v == 0 else f"{v / self.div:g}{self.suffix}"
+
+    return _Eng()
+
+
 def _title(fig, ds: xr.Dataset, subtitle: str) -> None:
     title = str(ds.attrs.get("title", "")).strip() or "sweep result"
     fig.suptitle(title, fontsize=11, fontweight="bold", x=0.01, ha="left")
@@ -889,9 +910,7 @@ def crossings_figure(ds: xr.Dataset, *, dpi: float | None = None):
                 pad = 0.04 * (hi - lo or abs(hi) or 1.0)
                 ax.set_xlim(lo - pad, hi + pad)
                 if hi >= 1e4:
-                    from matplotlib.ticker import FuncFormatter
-
-                    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: _tick(v)))
+                    ax.xaxis.set_major_formatter(_linear_eng_formatter())
             for val, colour, ls, lw in ((ref, REFERENCE, ":", 1.6), (nv, BLACK, "--", 1.6),
                                         (wv, VERMILLION, "-", 2.0)):
                 if val is not None and math.isfinite(val) and val > 0:
