@@ -253,6 +253,8 @@ def analyze_stack(N, D, *, sigma: float, gain_range=(0.0, math.inf),
                 full[bad] = part
             else:
                 full[:, bad] = part
+    # a Routh count the eigenvalues contradict leaves the classification in doubt
+    out.iV[_kernel.IV_ILL] |= out.iV[_kernel.IV_AGREES] == 0
     return out.as_dict()
 
 
@@ -312,7 +314,7 @@ def _analyze_staged(N, D, sigma, lo, hi, kop, has_op, full_check, poles, cl) -> 
     Fdeg, Ndeg, Rdeg = np.empty(V, i8), np.empty(V, i8), np.empty(V, i8)
     Popdeg = np.empty(V if has_op else 0, i8)
     _kernel.prepare(N, D, sigma, kop, has_op, Ds, Ns, w0, g, F, Fdeg, Ndeg, R, Rdeg, Pop, Popdeg)
-    uroots = _stack_roots(F, Fdeg)
+    uroots = _stack_roots(F, Fdeg, crossing=True)
     poles_t = (poles / w0[:, None]) if poles is not None else _stack_roots(Ds, np.full(V, n, i8))
     zeros_t = _stack_roots(Ns, Ndeg)
     broots = _stack_roots(R, Rdeg)
@@ -327,48 +329,46 @@ def _analyze_staged(N, D, sigma, lo, hi, kop, has_op, full_check, poles, cl) -> 
                    tgs, cnt, exists)
     # eigenvalue cross-checks of the Routh counts, as in the fused kernel
     if not has_op or full_check:
-        Nsp = np.zeros((V, n + 1))
-        Nsp[:, n - m:] = Ns
         agrees = out.iV[_kernel.IV_AGREES]
         check = exists.copy()
         if not full_check:
             check[:, 1:] = False        # only the first interval, at the reference side
-        rows = np.flatnonzero(check.reshape(-1))
-        Pt = (Ds[:, None, :] + sigma * tgs[:, :, None] * Nsp[:, None, :]).reshape(-1, n + 1)[rows]
-        c_all = np.zeros(V * (W + 1), i8)
-        c_all[rows] = _eig_count(Pt)
-        c_all = c_all.reshape(V, W + 1)
+        idx = np.flatnonzero(check.reshape(-1))
+        rows = idx // (W + 1)
+        Pt = np.empty((idx.size, n + 1))
+        deg = np.empty(idx.size, i8)
+        _kernel.pencil_stack(Ds, Ns, sigma * tgs.reshape(-1)[idx], rows, Pt, deg)
+        lo_c = np.empty(idx.size, i8)
+        hi_c = np.empty(idx.size, i8)
+        _kernel.rhp_band_rows(_stack_roots(Pt, deg), lo_c, hi_c)
+        c = cnt.reshape(-1)[idx]
+        ok = np.ones(V * (W + 1), bool)
+        ok[idx] = (lo_c <= c) & (c <= hi_c)
+        ok = ok.reshape(V, W + 1)
         if not has_op:
-            agrees[:] = c_all[:, 0] == cnt[:, 0]
+            agrees[:] = ok[:, 0]
         if full_check:
-            agrees[:] &= np.all((c_all == cnt) | ~exists, axis=1)
+            agrees[:] &= np.all(ok, axis=1)
     return out
 
 
-def _stack_roots(C: np.ndarray, degrees: np.ndarray) -> np.ndarray:
+def _stack_roots(C: np.ndarray, degrees: np.ndarray, crossing: bool = False) -> np.ndarray:
     """Roots of every row (the polynomial of its last ``degrees[v] + 1`` entries), NaN padded.
 
-    The fused kernel's own root step (`sweep._analysis_kernel.roots_rows`), so
-    both paths give the same roots; rows whose QR does not converge go to
+    The fused kernel's own root step (`sweep._analysis_kernel.roots_rows`;
+    with ``crossing`` only the roots the axis crossings need), so both paths
+    give the same roots; rows whose QR does not converge go to
     `sweep.rootfind.poly_roots`, which falls back to LAPACK.
     """
     C = np.ascontiguousarray(C, dtype=np.float64)
     degrees = np.ascontiguousarray(degrees, dtype=np.int64)
     out = np.empty((C.shape[0], C.shape[1] - 1), complex)
     ok = np.empty(C.shape[0], np.bool_)
-    _kernel.roots_rows(C, degrees, out, _QR_ITERATIONS, ok)
+    _kernel.roots_rows(C, degrees, out, _QR_ITERATIONS, ok, crossing)
     bad = np.flatnonzero(~ok)
     if bad.size:
         out[bad] = poly_roots(C[bad], degrees[bad], max_its=_QR_ITERATIONS)
     return out
-
-
-def _eig_count(P: np.ndarray) -> np.ndarray:
-    """Number of roots with positive real part of every row of ``P`` (eigenvalues)."""
-    P = np.ascontiguousarray(P)
-    deg = np.empty(P.shape[0], np.int64)
-    _kernel.actual_degrees(P, deg)
-    return np.sum(_stack_roots(P, deg).real > 0.0, axis=1)
 
 
 # ---------------------------------------------------------------------------

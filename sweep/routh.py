@@ -28,7 +28,10 @@ __all__ = [
     "hurwitz_boundary_gains",
 ]
 
-# An entry is "zero" when it is this small relative to the row above it.
+# An entry is "zero" when it is this small relative to the magnitude of the
+# terms it was computed from (the same recursion on absolute values), so a
+# genuinely small entry of a polynomial with widely spread coefficients is
+# not mistaken for a zero; an input coefficient is zero only when it is 0.
 _ZERO_RTOL = 1e-11
 # Value of epsilon (relative to the row above) for the epsilon rule.
 _EPSILON = 1e-9
@@ -38,7 +41,9 @@ def _routh_core(P: np.ndarray, keep_rows: bool):
     """Routh array of a stack ``(V, n+1)``; returns first column, rows, flags.
 
     Rows are held transposed, ``(width, V)``, so every entry of a row is a
-    contiguous vector over the stack.
+    contiguous vector over the stack. Beside every row runs the same
+    recursion on absolute values (``mprev``, ``mcur``): the size of the terms
+    an entry is made of, against which it is judged to be zero.
     """
     P = np.asarray(P, dtype=float)
     V, n1 = P.shape
@@ -55,35 +60,39 @@ def _routh_core(P: np.ndarray, keep_rows: bool):
     used_eps = np.zeros(V, dtype=bool)
     rows = [r0.T.copy()] if keep_rows else None
     prev, cur = r0, r1
+    mprev, mcur = np.abs(r0), np.abs(r1)
     scale = np.abs(prev).max(axis=0)
     for i in range(n):
         # `cur` is the row of power n-1-i, `prev` the row of power n-i.
-        tiny = _ZERO_RTOL * np.where(scale > 0, scale, 1.0)
-        acur = np.abs(cur)
-        cscale = acur.max(axis=0)
-        all_zero = cscale <= tiny
+        is_zero = np.abs(cur) <= _ZERO_RTOL * mcur
+        all_zero = is_zero.all(axis=0)
         if all_zero.any():
             # Row of zeros: replace by the derivative of the auxiliary polynomial
             # built from the row above (powers n-i, n-i-2, ...).
             powers = np.clip((n - i) - 2 * np.arange(width), 0, None).astype(float)
             cur = np.where(all_zero[None, :], prev * powers[:, None], cur)
+            mcur = np.where(all_zero[None, :], mprev * powers[:, None], mcur)
             zero_row |= all_zero
-            acur = np.abs(cur)
-            cscale = acur.max(axis=0)
-        small_first = acur[0] <= tiny
+            is_zero[0] = np.abs(cur[0]) <= _ZERO_RTOL * mcur[0]
+        small_first = is_zero[0]
         if small_first.any():
             # Epsilon rule: a small positive number stands for the zero entry.
             cur = cur.copy()
+            mcur = mcur.copy()
             cur[0] = np.where(small_first, _EPSILON * np.where(scale > 0, scale, 1.0), cur[0])
+            mcur[0] = np.where(small_first, np.abs(cur[0]), mcur[0])
             used_eps |= small_first
-            cscale = np.maximum(cscale, np.abs(cur[0]))
         first[i + 1] = cur[0]
         if keep_rows:
             rows.append(cur.T.copy())
         if i < n - 1:
+            ratio = prev[0] / cur[0]
             new = np.zeros((width, V))
-            new[:-1] = prev[1:] - (prev[0] / cur[0]) * cur[1:]
-            prev, cur, scale = cur, new, cscale
+            new[:-1] = prev[1:] - ratio * cur[1:]
+            mnew = np.zeros((width, V))
+            mnew[:-1] = mprev[1:] + np.abs(ratio) * mcur[1:]
+            scale = np.abs(cur).max(axis=0)
+            prev, cur, mprev, mcur = cur, new, mcur, mnew
     return first.T, rows, zero_row, used_eps
 
 

@@ -314,7 +314,9 @@ def analyze_stack_reference(N, D, *, sigma: float, gain_range=(0.0, math.inf),
     zrow[ex] = z_ex
     cnt = cnt.reshape(V, W + 1)
     zrow = zrow.reshape(V, W + 1)
-    lead_ok = np.abs(Pt[:, :, 0]) > 1e-12
+    # (the compiled kernel tests this relative to the terms that formed it; the
+    # absolute test here called wide-spread loops unstable)
+    lead_ok = np.abs(Pt[:, :, 0]) > 1e-12 * (np.abs(Ds[:, None, 0]) + np.abs(sigma * tgs * Nsp[:, None, 0]))
     stable_iv = (cnt == 0) & ~zrow & lead_ok & ~fixed_axis[:, None]
     stable_at_start = stable_iv[:, 0]
     stable_above = np.where(valid, stable_iv[:, 1:], False)

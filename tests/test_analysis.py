@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import math
 
+import mpmath
 import numpy as np
 import pytest
 import sympy as sp
@@ -50,8 +51,9 @@ def sympy_reference(num, den, sigma=1, lo=0, hi=None):
     """Boundary gains, frequencies and stable intervals, exactly.
 
     reference: sympy exact Hurwitz determinant (Delta_(n-1) of P(s, k) as a
-    polynomial in k), plus a_0(k) = 0 and a_n(k) = 0; frequencies from the
-    roots of P at the exact boundary gain to 40 digits.
+    polynomial in k), plus a_0(k) = 0 and a_n(k) = 0; a root of Delta_(n-1)
+    counts when P at that exact gain has a pair on the axis (mpmath roots at
+    80 digits), and gives the frequency.
     """
     N = sp.Poly([sp.Rational(x) for x in num], _s)
     D = sp.Poly([sp.Rational(x) for x in den], _s)
@@ -74,15 +76,22 @@ def sympy_reference(num, den, sigma=1, lo=0, hi=None):
         H = _hurwitz_sym(coeffs)
         delta = sp.Poly(sp.expand(H[: n - 1, : n - 1].det()), _k)
         assert not delta.is_zero
-        for r in sp.real_roots(delta) if delta.degree() > 0 else []:
+        for r in sorted(set(sp.real_roots(delta)), key=float) if delta.degree() > 0 else []:
             if not inside(r):
                 continue
-            Pr = sp.Poly([sp.nsimplify(c.subs(_k, r)) for c in coeffs], _s)
-            roots = sp.Poly(sp.N(Pr.as_expr(), 60), _s).nroots(n=40, maxsteps=200)
-            axis = [abs(sp.im(z)) for z in roots if abs(sp.re(z)) < 1e-25 and sp.im(z) > 0]
-            if axis:  # a pair +-jw, not a real pair +-a
-                found.append((r, float(max(axis))))
-    found.sort(key=lambda t: float(t[0]))
+            # P at the exact (algebraic) gain to 80 digits, roots by mpmath: rounding
+            # the gain first would move an axis pair off the axis by ~1e-16
+            with mpmath.workdps(80):
+                pc = [mpmath.mpmathify(str(sp.N(c.subs(_k, r), 90))) for c in coeffs]
+                while pc and pc[0] == 0:
+                    pc = pc[1:]
+                roots = mpmath.polyroots(pc, maxsteps=800, extraprec=800)
+                scale = max(1, max(abs(z) for z in roots))
+                axis = sorted({float(z.imag) for z in roots if abs(z.real) < 1e-40 * scale and z.imag > 0})
+            # each pair +-jw on the axis is a boundary (a real pair +-a is not); a
+            # repeated root of Delta_(n-1) is one gain with one or more pairs
+            found += [(r, w) for w in axis]
+    found.sort(key=lambda t: (float(t[0]), t[1]))
     gains = [t[0] for t in found]
     # stable intervals: exact Hurwitz test at a rational point of each interval
     edges = [lo] + gains + ([None] if hi is None else [sp.Rational(hi)])
@@ -91,7 +100,7 @@ def sympy_reference(num, den, sigma=1, lo=0, hi=None):
         if b is not None and not float(b) > float(a):
             continue
         if b is None:
-            t = sp.nsimplify(float(a) * 2 + 1)
+            t = sp.nsimplify(float(a) + 1 + abs(float(a)))   # above a also when a < 0
         else:
             t = sp.nsimplify((float(a) + float(b)) / 2)
         if _stable_exact([c.subs(_k, t) for c in coeffs]):
@@ -597,7 +606,7 @@ def test_compiled_routh_count_equals_numpy_routh():
         if p[0] == 0:
             continue
         w = p.size // 2 + 1
-        c, z, e = kernel.routh_count(p, np.empty(w), np.empty(w), np.empty(w))
+        c, z, e = kernel.routh_count(p, *(np.empty(w) for _ in range(6)))
         c2, z2, e2 = routh_rhp_count(p[None, :], return_flags=True)
         assert (c, z, e) == (c2[0], z2[0], e2[0]), p
 
