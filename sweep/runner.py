@@ -16,9 +16,9 @@ the writing nor the transfer of results goes through one process, and no
 process waits for another to hand out work. This process reads the
 workers' parts back between its own chunks and merges every part into the
 result as soon as it exists (`sweep.store.ResultWriter`), so the end of
-the run only publishes the file. Workers are forked once this process has
-loaded the compiled kernels when that is safe (`_start_method`), else they
-start as fresh interpreters before the run's set-up. With a Dask scheduler
+the run only publishes the file. The workers start first thing (forked
+when that is safe, see `_start_method`, else as fresh interpreters) and
+load what they need while this process sets the run up. With a Dask scheduler
 the cluster's workers compute and this process writes every part (the
 workers may not see this file system).
 
@@ -424,13 +424,12 @@ class _Claims:
         return True
 
 
-# The variants of the run in progress in this process, by config sha256: set by the run
-# before it forks its workers (they inherit them), filled by a fresh worker's warm-up.
+# A worker's copy of the variants of the run it works for (by config sha256), made by its warm-up.
 _VARIANTS: dict[str, Variants] = {}
 
 
 def _variants_of(config: Config) -> Variants:
-    """The run's variants in a worker: inherited, or generated again (deterministic from the config)."""
+    """The run's variants in a worker, generated again (deterministic from the config)."""
     variants = _VARIANTS.get(config.sha256)
     if variants is None:
         _VARIANTS.clear()
@@ -444,10 +443,10 @@ def _worker_loop(fn: Callable, config: Config, gains: np.ndarray, mask: np.ndarr
 
     The workers and the run's own process take chunks from the same list in
     the same order, so none waits for another to hand out work and the
-    last chunks are shared out one at a time. The variants are the run's
-    own when the worker was forked, else generated again (deterministic from
-    the config; the run checks every part's parameter values against its
-    own). Returns the number of chunks done.
+    last chunks are shared out one at a time. The worker generates the
+    variants again (deterministic from the config; the run checks every
+    part's parameter values against its own). Returns the number of chunks
+    done.
     """
     claims = _Claims(parts, run)
     variants = None
@@ -619,15 +618,15 @@ _START_METHOD: str | None = None
 def _start_method() -> str:
     """``"fork"`` on Linux when this process runs no other thread, else ``"loky"``.
 
-    A forked worker inherits this process's imported modules and compiled
-    kernels, so it is ready in milliseconds instead of about a second (an
-    interpreter, numpy, numba and the kernels' cache): on a short run that
-    second is most of what separates ``-j 2`` from twice the speed of
-    ``-j 1``. Forking is safe only without other threads (a lock held by one
-    would stay locked in the child) and with no result file open for
-    writing, so the run forks its workers right after its own warm-up and
-    before it opens any file; a process that already runs threads (a
-    notebook, a Dask client, an earlier run's pool) starts fresh
+    A forked worker inherits what this process has imported (and, in a
+    process that has run a sweep before, the compiled kernels), so it skips
+    the start of an interpreter, numpy and joblib: on a short run that
+    start-up is a good part of what separates ``-j 2`` from twice the speed
+    of ``-j 1``. Forking is safe only without other threads (a lock held by
+    one would stay locked in the child) and with no file open for writing;
+    the run forks its workers first thing, before it opens any file, and
+    only when no other thread runs. A process that already runs threads (a
+    notebook, a Dask client, a pool still closing) starts fresh
     interpreters instead.
     """
     import threading
@@ -642,10 +641,10 @@ def _start_method() -> str:
 class _Pool:
     """Local worker processes (joblib's loky process executor).
 
-    Started as early as the start method allows: a "loky" pool before the
-    run's set-up, so the workers import and load the kernels while this
-    process generates the variants and the gain grid; a "fork" pool once
-    this process has loaded them itself.
+    Started before the run's set-up: each worker's first task (`_warm_up`)
+    imports and loads the kernels and makes the variants while this process
+    does the same and works out the gain grid, so the workers are ready
+    when the chunks are handed out.
     """
 
     def __init__(self, workers: int, jobs: int, config: Config, method: str):
@@ -667,8 +666,8 @@ class _Pool:
             env = {k: threads for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
             self.executor = ProcessPoolExecutor(max_workers=workers, context=get_context("loky"), env=env,
                                                 initializer=_worker_init)
-            for _ in range(workers):  # load the kernels while the run sets up
-                self.executor.submit(_warm_up, config)
+        for _ in range(workers):  # load the kernels and make the variants while the run sets up
+            self.executor.submit(_warm_up, config)
 
     def start(self, *args) -> list:
         """One `_worker_loop` per worker; returns their futures."""
@@ -859,22 +858,16 @@ def _run_locked(config: Config, out: Path, parts: Path, log: _Log, count: int, s
     """The body of `run`, once the lock is held and the output is known to be incomplete."""
     n_chunks = math.ceil(count / size) if count else 0
     workers = 0 if scheduler else min(jobs, n_chunks) - 1
-    method = _start_method() if workers > 0 else None
-    pool = _Pool(workers, jobs, config, method) if method == "loky" else None  # starts now, while we set up
+    # the workers start first thing: their start-up runs beside this process's set-up
+    pool = _Pool(workers, jobs, config, _start_method()) if workers > 0 else None
     try:
+        if pool is not None:
+            log(f"{workers} local worker(s) started ({pool.method})")
         _remove_leftovers(out, parts, log)
         variants = designs.generate(config)
         man = _manifest(config, out, parts, variants, log)
-        if method == "fork":
-            _VARIANTS.clear()
-            _VARIANTS[config.sha256] = variants  # the forked workers inherit the variants ...
-            _warm_up(config)  # ... and the compiled kernels, loaded here once
-            pool = _Pool(workers, jobs, config, method)
-        if pool is not None:
-            log(f"{workers} local worker(s) started ({method})")
         t_merge = _compute_and_merge(config, out, parts, log, variants, man, pool, scheduler, quiet, t_start)
     finally:
-        _VARIANTS.clear()
         if pool is not None:
             pool.close()
     _pause_hook("cleanup", log)(0)
@@ -998,4 +991,4 @@ def _compute_all(config: Config, parts: Path, log: _Log, variants: Variants, gai
         raise
     finally:
         bar.close()
-    log(f"chunks done: {n_todo} computed in {time.perf_counter() - t0:.3f} s")
+    log(f"chunks done: {n_todo} in {time.perf_counter() - t0:.3f} s")
