@@ -463,6 +463,59 @@ def test_joblib_worker_exception_reraised(tmp_path, monkeypatch, method):
     assert kept and all(f"chunk {int(n[6:11])} variants" in log for n in kept)
 
 
+NO_PARAMETERS = """\
+title = "Kiln heater with every value fixed (test)"
+
+[plant]
+num = ["3"]
+den = ["0.1", "1.2", "2.1", "1"]
+
+[loop]
+gain_range = [0, inf]
+operating_gain = 2
+
+[sweep]
+designs = ["nominal", "corners", "random"]
+samples = 4
+chunk_size = 2
+
+[locus]
+points = 12
+keep = "all"
+"""
+
+EDGE_CONFIGS = {
+    "one chunk, more jobs than chunks": CONFIG.replace("chunk_size = 5", "chunk_size = 1000"),
+    "one variant per chunk, keep all": CONFIG.replace("chunk_size = 5", "chunk_size = 1").replace(
+        'keep = "corners"', 'keep = "all"'),
+    "no uncertain parameter": CONFIG.replace('tol = "10%", units = "ohm"', 'dist = "fixed", units = "ohm"')
+    .replace('low = 0.4, high = 0.9, units = "F"', 'dist = "fixed", units = "F"')
+    .replace('tol = "20%", dist = "normal", units = "s"', 'dist = "fixed", units = "s"'),
+    "no parameter at all": NO_PARAMETERS,
+    "no operating gain, keep none": CONFIG.replace("operating_gain = 2\n", "").replace(
+        'keep = "corners"', 'keep = "none"'),
+}
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", list(EDGE_CONFIGS))
+def test_edge_configs_same_result_for_any_jobs(tmp_path, name):
+    """Configs the kill tests do not cover: -j 1 and -j 3 give the same file, which plain xarray opens."""
+    text = EDGE_CONFIGS[name]
+    cfg = load_config(write_config(tmp_path, text))
+    one = load(runner.run(cfg, out=tmp_path / "one.nc", jobs=1, quiet=True))
+    three = load(runner.run(cfg, out=tmp_path / "three.nc", jobs=3, quiet=True))
+    xr.testing.assert_identical(one, three)
+    with xr.open_dataset(tmp_path / "three.nc") as ds:  # no engine, no sweep: a plain netCDF file
+        n = ds.sizes["variant"]
+        assert ds.attrs["config"] == text and list(ds.variant.values) == list(range(n))
+        keep = "all" if 'keep = "all"' in text else "none" if 'keep = "none"' in text else "corners"
+        assert ds.sizes["locus_variant"] == {"all": n, "none": 0}.get(keep, ds.sizes["locus_variant"])
+        assert np.isfinite(ds.abscissa_mean.values).all()
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(
+        ["kiln.toml", "one.nc", "one.nc.log", "three.nc", "three.nc.log"])
+
+
 def test_parameter_name_clash_refused(tmp_path):
     import dataclasses
 
