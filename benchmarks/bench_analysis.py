@@ -102,9 +102,10 @@ def main() -> None:
     kernel.prepare(N, D, 1.0, k0, True, *S)
     Ds, Ns, _, _, F, Fdeg, Ndeg, R, Rdeg, Pop, Popdeg = S
     c_roots = 0.0
-    for C, deg in ((Ds, np.full(V, n)), (Pop, Popdeg), (R, Rdeg), (F, Fdeg), (Ns, Ndeg)):
+    for C, deg, crossing in ((Ds, np.full(V, n), False), (Pop, Popdeg, False), (R, Rdeg, False),
+                             (F, Fdeg, True), (Ns, Ndeg, False)):
         c = time.process_time()
-        _stack_roots(C, deg)
+        _stack_roots(C, deg, crossing)
         c_roots += time.process_time() - c
     print(f"root problems inside the analysis alone: {c_roots / c_eig:.2f} passes (cpu)")
     print(f"stable at operating gain: {int(res['stable_at_reference'].sum())}/{V}, "

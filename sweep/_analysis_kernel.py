@@ -954,15 +954,41 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
             if not abs(step) < 1e-3 * max(abs(x), 1e-3):
                 step = 0.0
             x = x - step
-            kb = -_horner(Ds_, x) / (sigma * _horner(Ns_, x)) * gv
+            Dx = _horner(Ds_, x)
+            Nx = _horner(Ns_, x)
+            if abs(Nx) <= AXIS_RTOL * _horner_abs(Ns_, abs(x)):
+                continue            # a zero of N: reached only as k -> inf
+            if abs(Dx) <= AXIS_RTOL * _horner_abs(Ds_, abs(x)):
+                kb = 0.0            # a multiple pole of D: branches leave it at k = 0
+            else:
+                kb = -Dx / (sigma * Nx) * gv
             if math.isfinite(kb) and kb > lo and kb < hi:
                 bpv[i] = x * w0v
                 bkv[i] = kb
         if bwid > 0:
             _sort_pairs(bpv[:bwid], bkv[:bwid], bxv[:bwid])
-        for i in range(bwid):
-            fK[0, v, i] = bpv[i]
-            fK[1, v, i] = bkv[i]
+        # a multiple root of R (three or more branches meeting) comes out as a
+        # cluster of nearly equal roots: one point, at their mean (the mean of
+        # a cluster is well conditioned where its members are not)
+        nb = 0
+        i = 0
+        while i < bwid and not math.isnan(bpv[i]):
+            j2 = i + 1
+            while (j2 < bwid and not math.isnan(bpv[j2])
+                   and abs(bpv[j2] - bpv[i]) <= 1e-6 * max(abs(bpv[i]), 1e-3 * w0v)):
+                j2 += 1
+            sx = 0.0
+            sk = 0.0
+            for q in range(i, j2):
+                sx += bpv[q]
+                sk += bkv[q]
+            fK[0, v, nb] = sx / (j2 - i)
+            fK[1, v, nb] = sk / (j2 - i)
+            nb += 1
+            i = j2
+        for i in range(nb, bwid):
+            fK[0, v, i] = nan
+            fK[1, v, i] = nan
 
         # -- at the operating gain -------------------------------------------------------
         if has_op:

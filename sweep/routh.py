@@ -9,7 +9,9 @@ highest power first, numpy order):
   of polynomials in `routh_rhp_count`;
 * the Hurwitz matrix and its leading principal minors, and from them the
   boundary gains of a pencil ``D + sigma k N`` as the real roots in ``k`` of
-  ``Delta_(n-1)``, of ``a_0(k)`` and of ``a_n(k)`` (`hurwitz_boundary_gains`).
+  ``Delta_(n-1)`` (eigenvalues of the linear matrix pencil
+  ``H_(n-1)(D) + k H_(n-1)(sigma N)``), of ``a_0(k)`` and of ``a_n(k)``
+  (`hurwitz_boundary_gains`).
 
 The analysis module classifies stable intervals with the Routh count; the
 Hurwitz route is an independent cross-check used by the tests.
@@ -208,11 +210,13 @@ def hurwitz_determinants(coeffs) -> np.ndarray:
 def hurwitz_boundary_gains(num, den, *, sigma: float = 1.0, gain_range=(0.0, math.inf)):
     """Boundary gains of one loop from Hurwitz determinants (validation route).
 
-    ``Delta_(n-1)`` of ``P(s, k) = D + sigma k N`` is a polynomial in ``k`` of
-    degree at most ``n-1``; it is found by evaluating at Chebyshev sample
-    gains and interpolating. Its real roots where ``P`` really has a pair
-    ``+-jw`` (not a real pair ``+-a``) are boundary gains, together with the
-    roots of ``a_0(k)`` and ``a_n(k)``.
+    The Hurwitz matrix of ``P(s, k) = D + sigma k N`` is linear in ``k``,
+    ``H(P) = H(D) + k H(sigma N)``, so the roots in ``k`` of
+    ``Delta_(n-1)(k) = det(H_(n-1)(D) + k H_(n-1)(sigma N))`` are the
+    eigenvalues of a matrix pencil, found by the QZ algorithm
+    (`scipy.linalg.eigvals`) without forming the polynomial. Its real roots
+    where ``P`` really has a pair ``+-jw`` (not a real pair ``+-a``) are
+    boundary gains, together with the roots of ``a_0(k)`` and ``a_n(k)``.
 
     Parameters
     ----------
@@ -226,8 +230,11 @@ def hurwitz_boundary_gains(num, den, *, sigma: float = 1.0, gain_range=(0.0, mat
     Returns
     -------
     gains, frequencies
-        Sorted 1-D arrays (frequency 0 for the origin, inf for infinity).
+        Sorted 1-D arrays (frequency 0 for the origin, inf for infinity); two
+        pairs crossing at one gain give the gain twice.
     """
+    from scipy.linalg import eigvals
+
     N = np.trim_zeros(np.asarray(num, dtype=float), "f")
     D = np.trim_zeros(np.asarray(den, dtype=float), "f")
     n = D.size - 1
@@ -248,24 +255,39 @@ def hurwitz_boundary_gains(num, den, *, sigma: float = 1.0, gain_range=(0.0, mat
         if inside(k):
             found.append((k, math.inf))
     if n >= 2:
-        deg = n - 1
-        scale = max(1.0, np.max(np.abs(D)) / max(np.max(np.abs(Np)), 1e-300))
-        x = np.cos(np.pi * (np.arange(deg + 1) + 0.5) / (deg + 1))
-        ks = scale * x
-        vals = np.array([hurwitz_determinants(D + sigma * kk * Np)[n - 2] for kk in ks])
-        cheb = np.polynomial.Chebyshev.fit(ks, vals, deg, domain=[-scale, scale])
-        for r in cheb.roots():
-            if abs(r.imag) > 1e-7 * max(1.0, abs(r)):
+        # scale s = w0 t (w0 the geometric mean of the moduli of the nonzero roots
+        # of D) and both polynomials to unit size, then equilibrate the rows and
+        # columns of the pencil (powers of two): none of it moves the roots in k
+        # (gains scale by cD / cN), all of it helps the QZ algorithm
+        nz = np.flatnonzero(D)
+        low = nz[-1]
+        w0 = (abs(D[low]) / abs(D[0])) ** (1.0 / (low)) if low > 0 else 1.0
+        pw = np.arange(n, -1, -1)
+        Dt, Nt = D * w0 ** pw, Np * w0 ** pw
+        cD, cN = np.max(np.abs(Dt)), np.max(np.abs(Nt))
+        A = hurwitz_matrix(Dt / cD)[: n - 1, : n - 1]
+        B = hurwitz_matrix(sigma * Nt / cN)[: n - 1, : n - 1]
+        for _ in range(8):
+            M = np.abs(A) + np.abs(B)
+            r = np.exp2(-np.round(np.log2(np.maximum(M.max(axis=1), 1e-300))))
+            A, B = A * r[:, None], B * r[:, None]
+            M = np.abs(A) + np.abs(B)
+            c = np.exp2(-np.round(np.log2(np.maximum(M.max(axis=0), 1e-300))))
+            A, B = A * c[None, :], B * c[None, :]
+        with np.errstate(all="ignore"):
+            ks = eigvals(A, -B) * (cD / cN)
+        ks = ks[np.isfinite(ks) & (np.abs(ks.imag) <= 1e-7 * np.abs(ks))].real
+        seen: list[float] = []
+        for k in np.sort(ks):
+            if not inside(k) or any(abs(k - q) <= 1e-9 * abs(q) for q in seen):
                 continue
-            k = float(r.real)
-            if not inside(k):
-                continue
-            roots = np.roots(D + sigma * k * Np)
-            # An axis pair has (near) zero real part; a real pair +-a does not.
-            near = roots[np.abs(roots.real) <= 1e-6 * max(1.0, np.max(np.abs(roots)))]
-            near = near[near.imag > 0]
-            if near.size:
-                found.append((k, float(np.max(near.imag))))
+            seen.append(k)
+            r = np.roots(D + sigma * k * Np)
+            # an axis pair has a (relatively) zero real part; a real pair +-a does not
+            axis = np.sort(r[(np.abs(r.real) <= 1e-6 * np.abs(r)) & (r.imag > 0)].imag)
+            for i, w in enumerate(axis):
+                if i == 0 or w > axis[i - 1] * (1 + 1e-6):
+                    found.append((float(k), float(w)))
     found.sort()
     g = np.array([f[0] for f in found], dtype=float)
     w = np.array([f[1] for f in found], dtype=float)

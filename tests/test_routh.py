@@ -116,3 +116,28 @@ def test_hurwitz_boundary_gains_classic():
 def test_routh_array_rejects_zero_polynomial():
     with pytest.raises(ValueError):
         routh_array([0.0, 0.0])
+
+
+def test_small_entries_of_a_wide_spread_polynomial_are_not_zeros():
+    # degree 12, roots from 5e-5 to 6e3 rad/s: Routh entries span 14 decades. An
+    # entry is zero only relative to the terms it is made of, so no epsilon rule
+    # here. Reference: the exact Routh array (sympy rationals) has no sign change.
+    import sympy as sp
+
+    P = np.array([1.0, 13654.388172860454, 62406255.97369612, 107300210516.23595,
+                  49102056984930.984, 8044470884945200.0, 4.344621513740299e+17,
+                  5050724244686659.0, 29478514800156.25, 72151846874.73296, 62134608.96072394,
+                  11445.117793433285, 4.273017608914708 + 0.155 * 15.92932265737683])
+    c = [sp.Rational(x) for x in P]
+    rows = [c[0::2] + [0] * 7, c[1::2] + [0] * 7]
+    first = [rows[0][0], rows[1][0]]
+    for _ in range(P.size - 2):
+        a, b = rows[-2], rows[-1]
+        rows.append([a[j + 1] - a[0] / b[0] * b[j + 1] for j in range(6)] + [0])
+        first.append(rows[-1][0])
+    assert all(x > 0 for x in first)
+    cnt, zrow, eps = routh_rhp_count(P[None, :], return_flags=True)
+    assert cnt[0] == 0 and not zrow[0] and not eps[0]
+    arr, c2 = routh_array(P)
+    assert c2 == 0
+    np.testing.assert_allclose(arr[:, 0], [float(x) for x in first], rtol=1e-9)
