@@ -495,6 +495,10 @@ class ResultWriter:
                 _put(nc[vname], var.values)
         self._envelopes[a] = (b, tuple(np.asarray(part[v]) for v in ENVELOPE_VARS))
         self.added += 1
+        if lv.size:
+            # compress the kept loci now: HDF5 would otherwise hold them in its chunk cache and
+            # compress them all when the file is closed, in the run's last, serial step
+            nc.sync()
 
     def finish(self, attrs: Mapping[str, object]) -> Path:
         """Fold the envelopes in variant order, set the global attributes, publish the file.
