@@ -72,6 +72,7 @@ from pathlib import Path
 from typing import Callable
 
 import numpy as np
+
 from . import __version__, designs, store
 from .config import Config
 from .designs import Variants
