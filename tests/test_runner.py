@@ -444,9 +444,11 @@ def test_joblib_worker_exception_reraised(tmp_path, monkeypatch, method):
     flag = tmp_path / "a worker took a chunk"
 
     def failing(config, variants, gains, kept):  # a closure: joblib ships it by value
-        if os.getpid() != here and variants.count > 1:  # a chunk in the worker (not its warm-up)
-            flag.touch()
-            raise ZeroDivisionError("chunk failed on purpose")
+        if os.getpid() != here:
+            if variants.count > 1:  # a chunk in the worker
+                flag.touch()
+                raise ZeroDivisionError("chunk failed on purpose")
+            return real(config, variants, gains, kept)  # its warm-up (a forked worker inherits this patch)
         t0 = time.time()  # wait for the worker (a fresh interpreter takes a while to start)
         while not flag.exists() and time.time() - t0 < 60:
             time.sleep(0.02)
