@@ -212,6 +212,27 @@ def _is_finite(x: float) -> bool:
     return x - x == 0.0
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def _apply_steps(zri, zii, dri, dii, ari, hr, hi, L: int) -> None:
+    """Move each root by ``P / P'`` (``hr + i hi`` over ``dri + i dii``); ``ari`` gets the step size.
+
+    Where ``|P'|^2`` leaves the normal range the plain quotient is unsafe:
+    the root stays and its step size is NaN, for `_fix_quotients`.
+    """
+    for b in range(L):
+        den = dri[b] * dri[b] + dii[b] * dii[b]
+        sr = (hr[b] * dri[b] + hi[b] * dii[b]) / den
+        si = (hi[b] * dri[b] - hr[b] * dii[b]) / den
+        a = math.sqrt(sr * sr + si * si)
+        if not (den > 1e-280 and den < 1e280):
+            sr = 0.0
+            si = 0.0
+            a = math.nan
+        ari[b] = a
+        zri[b] -= sr
+        zii[b] -= si
+
+
 @njit(cache=True, error_model="numpy")
 def _block_newton(P, zr, zi, dr, di, ar, hr, hi, L: int) -> None:
     """One Newton step on every root of the first ``L`` variants of a block.
@@ -249,19 +270,7 @@ def _block_newton(P, zr, zi, dr, di, ar, hr, hi, L: int) -> None:
                 ti = hr[b] * xi + hi[b] * xr
                 hr[b] = tr
                 hi[b] = ti
-        for b in range(L):
-            den = dri[b] * dri[b] + dii[b] * dii[b]
-            sr = (hr[b] * dri[b] + hi[b] * dii[b]) / den
-            si = (hi[b] * dri[b] - hr[b] * dii[b]) / den
-            a = math.sqrt(sr * sr + si * si)
-            if not (den > 1e-280 and den < 1e280):
-                # left for `_fix_quotients`: the root stays, the step size says why
-                sr = 0.0
-                si = 0.0
-                a = math.nan
-            ari[b] = a
-            zri[b] -= sr
-            zii[b] -= si
+        _apply_steps(zri, zii, dri, dii, ari, hr, hi, L)
 
 
 @njit(cache=True, error_model="numpy")
@@ -288,19 +297,7 @@ def _block_check(P, zr, zi, dr, di, ar, hr, hi, L: int) -> None:
                 ti = hr[b] * xi + hi[b] * xr
                 hr[b] = tr
                 hi[b] = ti
-        for b in range(L):
-            den = dri[b] * dri[b] + dii[b] * dii[b]
-            sr = (hr[b] * dri[b] + hi[b] * dii[b]) / den
-            si = (hi[b] * dri[b] - hr[b] * dii[b]) / den
-            a = math.sqrt(sr * sr + si * si)
-            if not (den > 1e-280 and den < 1e280):
-                # left for `_fix_quotients`: the root stays, the step size says why
-                sr = 0.0
-                si = 0.0
-                a = math.nan
-            ari[b] = a
-            zri[b] -= sr
-            zii[b] -= si
+        _apply_steps(zri, zii, dri, dii, ari, hr, hi, L)
 
 
 @njit(cache=True, error_model="numpy")
