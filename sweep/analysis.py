@@ -12,20 +12,41 @@ Steps (see DESIGN section 3 and METHODS):
    geometric spread of the coefficients of ``D``) and normalise ``D`` and
    ``N`` by powers of two, so scaling is exact and nothing depends on the
    other variants in the batch.
-2. Axis crossings: ``Im[D(jw) N(-jw)] = w F(w^2)``; the real positive roots
-   ``u`` of ``F`` (companion eigenvalues, one Newton polish) give
-   ``w = sqrt(u)`` and ``k = -D(jw)/(sigma N(jw))``. Roots through the origin
-   and through infinity are added from the end coefficients.
+2. Axis crossings: ``Im[D(jw) N(-jw)] = w F(w^2)``; the positive real roots
+   ``u`` of ``F`` (companion eigenvalues; with at most one sign change in
+   ``F`` - Descartes' rule - the one positive root by safeguarded Newton)
+   give ``w = sqrt(u)`` and ``k = -D(jw)/(sigma N(jw))``, then Newton's
+   method on ``D(jw) + sigma k N(jw) = 0`` itself polishes ``(k, w)``
+   (``F`` is built from products and can lose digits the crossing does not).
+   Roots through the origin and through infinity come from the end
+   coefficients.
 3. Stable intervals: a Routh count at a test gain inside every interval
-   between consecutive boundary gains.
+   between consecutive boundary gains, cross-checked by the eigenvalues at
+   the reference gain (``full_check``: at every test gain).
 4. Sketch quantities, and closed-loop quantities at the operating gain.
 
-Numerical rules: a leading coefficient below ``1e-13`` of the largest counts
-as zero (the polynomial's degree drops); a computed root counts as real when
-``|Im| <= 1e-6 |z|``; relative imaginary parts between ``1e-11`` and
-``1e-4`` of a positive root of ``F``, two nearly equal ones, a residual of
-``F`` above ``1e-8`` after the polish, or a complex gain at a crossing flag
-the variant ``ill_conditioned``.
+Numerical rules (constants in `sweep._analysis_kernel`):
+
+* the degree of ``F``, of the breakaway polynomial and of ``P`` drops only
+  where their top coefficients cancel (below ``1e-13`` of the terms they are
+  made of); small uncancelled ones are kept (wide coefficient spreads have
+  them); ``N`` loses leading coefficients below ``1e-13`` of its largest;
+* a computed root counts as real when ``|Im| <= 1e-6 |z|``; a cluster of
+  nearly equal real breakaway roots (a multiple root) is one point;
+* at a positive root of ``F`` where ``|D(jw)|`` is below ``1e-13`` of its
+  terms, ``D`` has an axis root: the crossing is at ``k = 0`` exactly;
+  where ``|N(jw)|`` is, ``N`` has an axis zero: no crossing (``k = inf``);
+  both below ``1e-8``: a root common to ``N`` and ``D`` on the axis
+  (``fixed_axis_root``, never stable);
+* an operating gain equal to a boundary gain within that gain's estimated
+  error (at least ``1e-14`` relative) is on the boundary: not stable;
+* the Routh count agrees with the eigenvalues when it lies between the
+  counts of roots with real part above ``1e-9 |z|`` and above ``-1e-9 |z|``;
+* ``ill_conditioned`` is set by: a crossing whose first-order error
+  estimate exceeds ``1e-10`` (or whose polish does not converge), a
+  nearly real pair (relative imaginary part in ``(1e-11, 1e-4)``) or a
+  nearly double positive root of ``F`` (a tangent touch of the axis), a
+  complex gain at a crossing, or a Routh count the eigenvalues contradict.
 """
 from __future__ import annotations
 
