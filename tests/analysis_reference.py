@@ -140,45 +140,7 @@ def analyze_stack_reference(N, D, *, sigma: float, gain_range=(0.0, math.inf),
                   full_check: bool = False,
                   open_loop_poles: np.ndarray | None = None,
                   closed_loop_poles: np.ndarray | None = None) -> dict[str, np.ndarray]:
-    """Analyse a stack of loops ``k N/D`` closed with ``P = D + sigma k N``.
-
-    Parameters
-    ----------
-    N, D
-        ``(V, m+1)`` and ``(V, n+1)`` float64 coefficients, highest power first,
-        ``m <= n``, ``D[:, 0] != 0``.
-    sigma
-        ``+1`` negative feedback, ``-1`` positive feedback.
-    gain_range
-        ``(lo, hi)`` with ``hi`` possibly ``inf``; boundary gains and breakaway
-        points count only strictly inside.
-    operating_gain
-        Design gain (inside ``gain_range``) at which margins and closed-loop
-        poles are computed; ``None`` uses ``lo`` approached from above as the
-        reference gain and leaves the operating-gain quantities NaN.
-    full_check
-        Also compare the Routh classification with eigenvalue counts at the
-        test gain of every interval (slower; validation mode).
-    open_loop_poles, closed_loop_poles
-        Roots ``(V, n)`` already known to the caller (the roots of ``D``, and
-        of ``P`` at the operating gain), e.g. from locus tracing on a grid
-        that holds the operating gain. They replace two eigenvalue passes;
-        any order is accepted.
-
-    Returns
-    -------
-    dict
-        Keyed by dataset variable names (see `VARIABLE_DIMS`); widths depend
-        only on the degrees: boundary `boundary_width(n, m)`, pole ``n``,
-        zero ``m``, breakaway `breakaway_width(n, m)`. Padding is NaN
-        (int8 flags: -1).
-
-    Raises
-    ------
-    InputError
-        Inconsistent shapes, improper loop, non-finite coefficients, zero
-        leading denominator coefficient, bad gain range or operating gain.
-    """
+    """The former numpy formulation of `sweep.analysis.analyze_stack` (same arguments, same keys)."""
     N, D, sigma, lo, hi, k_op = _check_inputs(N, D, sigma, gain_range, operating_gain)
     V = D.shape[0]
     n, m = D.shape[1] - 1, N.shape[1] - 1
