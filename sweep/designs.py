@@ -112,11 +112,15 @@ def _sigma(p: Parameter) -> float:
 def _from_unit(p: Parameter, u: np.ndarray) -> np.ndarray:
     """Map unit-interval draws to the parameter's distribution (inverse CDF)."""
     if p.dist == "normal":
-        from scipy import stats  # imported here: chunk workers import this module without needing scipy.stats
+        from scipy.special import ndtr, ndtri
 
         sd = _sigma(p)
         a, b = (p.low - p.nominal) / sd, (p.high - p.nominal) / sd
-        x = stats.truncnorm.ppf(u, a, b, loc=p.nominal, scale=sd)
+        lo, hi = ndtr(a), ndtr(b)
+        q = lo + u * (hi - lo)
+        # above the median, the same quantile from the upper tail (no digits lost near 1)
+        upper = -ndtri(ndtr(-b) + (1.0 - u) * (ndtr(-a) - ndtr(-b)))
+        x = p.nominal + sd * np.where(q > 0.5, upper, ndtri(q))
     else:
         x = p.low + u * (p.high - p.low)
     # ppf/rounding may step a hair outside the box; the box is the contract
@@ -205,15 +209,26 @@ def _grid(unc: tuple[Parameter, ...], levels: int) -> np.ndarray:
     return np.stack([m.ravel() for m in mesh], axis=1)
 
 
+def _latin_hypercube(p: int, n: int, rng: np.random.Generator) -> np.ndarray:
+    """Latin hypercube (McKay, Beckman and Conover, 1979) of ``n`` points in ``[0, 1)^p``.
+
+    Every coordinate's ``n`` equal strata hold one point each, at a uniform
+    position inside its stratum; the strata of the coordinates are paired
+    by independent random permutations.
+    """
+    strata = rng.permuted(np.tile(np.arange(n), (p, 1)), axis=1).T
+    return (strata + rng.random((n, p))) / n
+
+
 def _unit_points(name: str, p: int, n: int, rng: np.random.Generator) -> np.ndarray:
     if n == 0:
         return np.zeros((0, p))
     if name == "random":
         return rng.random((n, p))
-    from scipy.stats import qmc
-
     if name == "lhs":
-        return qmc.LatinHypercube(d=p, scramble=True, rng=rng).random(n)
+        return _latin_hypercube(p, n, rng)
+    from scipy.stats import qmc  # only Sobol needs it (its import alone costs about half a second)
+
     # sobol: next power of two via random_base2 (no balance warning), keep the first n
     m = max(0, math.ceil(math.log2(n)))
     return qmc.Sobol(d=p, scramble=True, rng=rng).random_base2(m)[:n]

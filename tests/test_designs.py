@@ -87,6 +87,26 @@ def test_lhs_is_stratified():
     u = (v.values["R"] - 1.08) / (1.32 - 1.08)
     # one point in each of the 40 strata (McKay, Beckman and Conover 1979: the LHS property)
     assert sorted(np.floor(u * 40).astype(int)) == list(range(40))
+    from sweep.designs import _latin_hypercube
+
+    pts = _latin_hypercube(4, 257, np.random.default_rng(0))
+    for j in range(4):
+        assert sorted(np.floor(pts[:, j] * 257).astype(int)) == list(range(257))
+    # the pairing of strata is random: coordinates are not ordered alike
+    assert abs(stats.spearmanr(pts[:, 0], pts[:, 1])[0]) < 0.2
+
+
+def test_truncated_normal_inverse_matches_scipy():
+    # reference: scipy.stats.truncnorm.ppf on the same draws, bounds within 6 sigma
+    from sweep.config import Parameter
+    from sweep.designs import _from_unit
+
+    u = np.linspace(0.0, 1.0, 2001)
+    for low, nominal, high in [(0.85, 1.0, 1.15), (0.8, 1.0, 1.8), (1.0, 1.0, 1.3), (-2.0, 0.5, 1.0)]:
+        p = Parameter("X", nominal, low, high, dist="normal")
+        sd = (high - low) / 6
+        ref = stats.truncnorm.ppf(u, (low - nominal) / sd, (high - nominal) / sd, loc=nominal, scale=sd)
+        np.testing.assert_allclose(_from_unit(p, u), ref, rtol=0, atol=1e-12 * (high - low))
 
 
 def test_sobol_any_count_without_warning():
