@@ -817,7 +817,9 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
             if not conv or est > CROSSING_RTOL:
                 ill = True          # fewer correct digits than the results show
             kc = kp * gv
-            if kc > lo and kc < hi:
+            # strictly inside the range: a crossing within its own error of an end is at the end
+            band = 8.0 * max(est if conv else CROSSING_RTOL, EPS) * abs(kc)
+            if kc - band > lo and kc + band < hi:
                 bg[i] = kc
                 bw[i] = w * w0v
                 be[i] = est if conv else max(est, CROSSING_RTOL)
@@ -827,15 +829,15 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
         if n0 == 0.0 and d0 == 0.0:
             fixed_axis = True
         k_org = -d0 / (sigma * n0) + 0.0 if n0 != 0.0 else nan    # + 0.0: no -0.0
-        if not (k_org > lo and k_org < hi):
-            k_org = nan
+        if not (k_org - 2.0 * EPS * abs(k_org) > lo and k_org + 2.0 * EPS * abs(k_org) < hi):
+            k_org = nan     # outside the range, or at one of its ends to rounding
         bg[du] = k_org
         bw[du] = nan if math.isnan(k_org) else 0.0
         be[du] = EPS
         # root through infinity
         if m == n:
             k_inf = -Dv[0] / (sigma * Nv[0]) + 0.0 if Nv[0] != 0.0 else nan
-            if not (k_inf > lo and k_inf < hi):
+            if not (k_inf - 2.0 * EPS * abs(k_inf) > lo and k_inf + 2.0 * EPS * abs(k_inf) < hi):
                 k_inf = nan
             bg[du + 1] = k_inf
             bw[du + 1] = nan if math.isnan(k_inf) else math.inf
