@@ -188,9 +188,12 @@ def test_against_sympy_exact(name, num, den, fb, gr, k0):
     # the Hurwitz route of sweep.routh agrees too (in floating point it is the
     # weaker route: determinants of a degree-10 Hurwitz pencil with a 1e14
     # coefficient spread keep only a few digits, so that loop is left out)
+    # (its digits also vary with the LAPACK build: at degree 12 with a 1e15
+    # spread one build gave 6e-7 relative, so that degree is held to 1e-5)
     if name not in _HURWITZ_TOO_WIDE:
         g_h, w_h = hurwitz_boundary_gains(num, den, sigma=sigma, gain_range=gr)
-        np.testing.assert_allclose(sorted(g_h), g_ref, rtol=1e-7, atol=1e-12)
+        rtol = 1e-7 if len(den) - 1 < 12 else 1e-5
+        np.testing.assert_allclose(sorted(g_h), g_ref, rtol=rtol, atol=1e-12)
 
 
 def test_case_coverage():
