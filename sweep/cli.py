@@ -203,8 +203,6 @@ def _cmd_plot(args: argparse.Namespace) -> int:
     ext = os.path.splitext(out)[1].lower()
     if ext not in (".png", ".svg", ".pdf"):
         raise InputError(f"unknown image format '{ext or out}'; use a .png, .svg or .pdf file name", field="-o")
-    if args.what == "plane" and not args.params:
-        raise InputError("--what plane needs the two parameters to draw: --params A B", field="--params")
     try:
         path = plots.plot(ds, args.what, out, params=tuple(args.params) if args.params else None)
     except InputError as exc:  # name the result file the problem is in (unless it is the image)

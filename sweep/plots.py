@@ -153,10 +153,44 @@ def _linear_eng_formatter():
     return _Eng()
 
 
+def _renderer(fig):
+    """A renderer to measure text and legends before the figure is drawn (any backend)."""
+    from matplotlib.backends.backend_agg import RendererAgg
+
+    return RendererAgg(int(fig.bbox.width) + 1, int(fig.bbox.height) + 1, fig.dpi)
+
+
+def _wrap_to_width(fig, text, right: float = 0.99) -> None:
+    """Break a figure text into lines so it ends left of ``right`` (figure fraction)."""
+    import textwrap
+
+    box = text.get_window_extent(_renderer(fig))
+    room, wide = right * fig.bbox.width - box.x0, box.width
+    if wide <= room or room <= 0:
+        return
+    s = text.get_text()
+    chars = max(20, int(len(s) * room / wide) - 2)
+    text.set_text(textwrap.fill(s, chars))
+
+
+def _legend(fig, handles: list, *, ncol: int, **kw):
+    """``fig.legend`` with at most ``ncol`` columns, fewer when a row would not fit the figure."""
+    r = _renderer(fig)
+    for n in range(max(int(ncol), 1), 0, -1):
+        leg = fig.legend(handles=handles, ncol=n, **kw)
+        box = leg.get_window_extent(r)
+        if n == 1 or (box.x0 >= 0 and box.x1 <= fig.bbox.width):
+            return leg
+        leg.remove()
+    return None
+
+
 def _title(fig, ds: xr.Dataset, subtitle: str) -> None:
     title = str(ds.attrs.get("title", "")).strip() or "sweep result"
-    fig.suptitle(title, fontsize=11, fontweight="bold", x=0.01, ha="left")
-    fig.text(0.01, 0.935, subtitle, fontsize=9, color="#404040", ha="left", va="top")
+    head = fig.suptitle(title, fontsize=11, fontweight="bold", x=0.01, ha="left")
+    _wrap_to_width(fig, head)
+    sub = fig.text(0.01, 0.935, subtitle, fontsize=9, color="#404040", ha="left", va="top")
+    _wrap_to_width(fig, sub)
 
 
 def _design(ds: xr.Dataset) -> np.ndarray:
@@ -583,8 +617,8 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
 
     names = query.uncertain_names(ds) or query.parameter_names(ds)
     if not names:
-        raise InputError("plot 'limits': the result has no parameter coordinates; rerun 'sweep run'",
-                         field="parameters")
+        raise InputError("plot 'limits': the sweep has no parameters to plot the critical gain "
+                         "against; use --what envelope, crossings or locus", field="parameters")
     crit, unstable = _crit_for_plot(ds)
     design = _design(ds)
     variants = np.asarray(ds["variant"].values)
@@ -679,8 +713,12 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
             handles.append(Line2D([], [], marker="D", ls="none", color=BLACK, ms=6, label="nominal"))
         if wi is not None:
             wk = summary["worst"]["critical_gain"]
-            wl = (f"worst case, variant {worst} ({_fmt(wk)})" if wk is not None and math.isfinite(wk)
-                  else f"worst case, variant {worst} (unstable at the reference gain)")
+            if wk is not None and math.isfinite(wk):
+                wl = f"worst case, variant {worst} ({_fmt(wk)})"
+            elif summary["unstable_at_reference"]:
+                wl = f"worst case, variant {worst} (unstable at the reference gain)"
+            else:  # every critical gain infinite: any variant is as good as the worst
+                wl = f"worst case, variant {worst} (inf, as every variant)"
             handles.append(Line2D([], [], marker="o", ls="none", mfc="none", mec=VERMILLION, mew=2,
                                   ms=11, label=wl))
         if ref_in_view:
@@ -695,14 +733,16 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
             handles.append(Line2D([], [], marker="x", ls="none", color=GREY,
                                   label=f"unstable at the reference gain, drawn at the bottom "
                                         f"({int(unstable.sum())})"))
-        fig.legend(handles=handles, loc="lower center", ncol=min(len(handles), 3 if cols < 3 else 4),
-                   frameon=False, bbox_to_anchor=(0.5, 0.0))
+        _legend(fig, handles, ncol=min(len(handles), 3 if cols < 3 else 4), loc="lower center",
+                frameon=False, bbox_to_anchor=(0.5, 0.0))
         sub = ("Critical gain against each uncertain parameter" if query.uncertain_names(ds)
                else "Critical gain against each parameter (none varies)")
         sub += " (log scale)" if use_log else ""
         if not finite.size:
-            sub += ("; no finite critical gain: every variant is unstable at the reference gain "
-                    "or never loses stability")
+            sub += "; no finite critical gain: " + (
+                "every variant is unstable at the reference gain" if unstable.all()
+                else "no variant loses stability in the gain range" if np.isposinf(crit).all()
+                else "each variant is unstable at the reference gain or never loses stability")
         if summary["not_computed"]:
             sub += f"; {summary['not_computed']} variants without a computed critical gain not drawn"
         if thinned:
@@ -812,8 +852,7 @@ def envelope_figure(ds: xr.Dataset, *, dpi: float | None = None):
             ax.set_ylim(lo_y - 0.05 * span, hi_y + 0.05 * span)
         ax.set_xlabel(_label(ds, "gain", "loop gain k"))
         ax.set_ylabel(ylabel)
-        fig.legend(handles=handles, loc="lower center", ncol=2, frameon=False,
-                   bbox_to_anchor=(0.5, 0.0))
+        _legend(fig, handles, ncol=2, loc="lower center", frameon=False, bbox_to_anchor=(0.5, 0.0))
         _title(fig, ds, f"Spectral abscissa against gain over all {summary['n_variants']} variants "
                         "(above zero: some variant unstable)")
     return fig
@@ -939,8 +978,8 @@ def crossings_figure(ds: xr.Dataset, *, dpi: float | None = None):
             if cnt:
                 handles.append(Line2D([], [], marker="|", ls="none", color=DESIGN_COLOURS[d], ms=9,
                                       mew=1.1, label=f"{d} ({cnt}), one tick each"))
-        fig.legend(handles=handles, loc="upper left", ncol=1 if len(handles) < 4 else 2,
-                   frameon=False, bbox_to_anchor=(0.065, 0.17), fontsize=7.5)
+        _legend(fig, handles, ncol=1 if len(handles) < 4 else 2, loc="upper left", frameon=False,
+                bbox_to_anchor=(0.065, 0.17), fontsize=7.5)
         n_inf = int(np.isposinf(crit).sum())
         n_un = int(unstable.sum())
         n_zero = int(np.sum(freq == 0))
@@ -1086,8 +1125,8 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
         ax.tick_params(axis="x", labelrotation=30 if xa.size > 5 else 0)
         ax.grid(False)
         if extra:
-            fig.legend(handles=extra, loc="lower center", ncol=min(len(extra), 2), frameon=False,
-                       bbox_to_anchor=(0.5, 0.0))
+            _legend(fig, extra, ncol=min(len(extra), 2), loc="lower center", frameon=False,
+                    bbox_to_anchor=(0.5, 0.0))
         sub = (f"Critical gain over {a} and {b} ({table.attrs['n_variants']} grid variants, "
                f"minimum over {table.attrs['others'] or 'nothing else'})")
         if table.attrs["not_computed"]:
@@ -1110,7 +1149,8 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> xr.DataArray:
     ds
         A result dataset.
     params
-        Two parameter names ``(A, B)``.
+        Two parameter names ``(A, B)``; None picks the two uncertain
+        parameters when there are exactly two.
 
     Returns
     -------
@@ -1131,9 +1171,25 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> xr.DataArray:
     design = _design(ds)
     present = sorted(set(design))
     uncertain = query.uncertain_names(ds)
+    # first what the result itself rules out, then what the caller chose
+    if len(uncertain) < 2:
+        raise InputError("plot 'plane' needs two parameters that vary between the variants; this "
+                         f"result has {len(uncertain) or 'none'}"
+                         + (f" ({', '.join(uncertain)})" if uncertain else "")
+                         + "; add \"grid\" to [sweep] designs with two or more toleranced "
+                         "parameters, or use --what "
+                         + ("limits or crossings" if uncertain else "envelope, crossings or locus"),
+                         field="params")
+    if "grid" not in present:
+        raise InputError("plot 'plane' uses the grid design, which this result lacks (designs: "
+                         f"{', '.join(present)}); add \"grid\" to [sweep] designs (levels = 5 or so) "
+                         "and rerun 'sweep run'", field="sweep.designs")
+    if params is None and len(uncertain) == 2:
+        params = tuple(uncertain)  # the only two there are
     if params is None or len(params) != 2:
         raise InputError("plot 'plane' needs exactly two parameters, e.g. --params "
-                         + " ".join((uncertain + ["A", "B"])[:2]), field="params")
+                         f"{' '.join(uncertain[:2])} (uncertain parameters: {', '.join(uncertain)})",
+                         field="params")
     a, b = (str(p) for p in params)
     if a == b:
         raise InputError(f"plot 'plane': the two parameters must differ (got {a} twice)",
@@ -1144,16 +1200,6 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> xr.DataArray:
             close = difflib.get_close_matches(p, known, n=1, cutoff=0.5)
             hint = f"; did you mean '{close[0]}'?" if close else f"; parameters: {', '.join(known)}"
             raise InputError(f"plot 'plane': no parameter '{p}' in the result{hint}", field="params")
-    if len(uncertain) < 2:
-        raise InputError("plot 'plane' needs two parameters that vary between the variants; this "
-                         f"result has {len(uncertain) or 'none'}"
-                         + (f" ({', '.join(uncertain)})" if uncertain else "")
-                         + "; add \"grid\" to [sweep] designs with two or more toleranced "
-                         "parameters, or use --what limits or crossings", field="params")
-    if "grid" not in present:
-        raise InputError("plot 'plane' uses the grid design, which this result lacks (designs: "
-                         f"{', '.join(present)}); add \"grid\" to [sweep] designs (levels = 5 or so) "
-                         "and rerun 'sweep run'", field="sweep.designs")
     m = design == "grid"
     crit, unstable = _crit_for_plot(ds)
     xa = np.asarray(ds[a].values, float)[m]

@@ -755,10 +755,11 @@ def format_summary(summary: dict, ds: xr.Dataset) -> str:
         for n, v in w["parameters"].items():
             u = _units(ds, n)
             prow.append((n, f"{_num(v)} {u}".rstrip()))
-        lines += _table(prow, indent=4)
+        lines += _table(prow, indent=4) if prow else ["    (none: the config has no parameters)"]
     q = summary.get("quantiles") or {}
     qb = summary.get("quantile_basis") or {}
-    over = (f" over {qb.get('variants')} variants ({', '.join(qb.get('designs', []))})"
+    over = (f" over {qb.get('variants')} variant{'' if qb.get('variants') == 1 else 's'} "
+            f"({', '.join(qb.get('designs', []))})"
             if qb.get("designs") else "")
     lines += ["", f"Critical gain quantiles{over}:"]
     lines += _table([(f"q {k}", _num(v)) for k, v in q.items()], indent=2)
