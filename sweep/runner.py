@@ -67,6 +67,7 @@ import shutil
 import sys
 import time
 from collections import deque
+from concurrent.futures.process import BrokenProcessPool  # loky's errors for a dead worker derive from it
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Callable
@@ -162,32 +163,61 @@ class _Lock:
     def __init__(self, path: Path, log: _Log):
         self.path, self.log, self.owned = path, log, False
 
-    def __enter__(self) -> "_Lock":
-        me = {"pid": os.getpid(), "proc_start": _proc_start(os.getpid()), "started": _now()}
-        for _ in range(5):
+    def _create(self, me: dict) -> bool:
+        """Create the lock file holding ``me``, all at once; False if it exists.
+
+        The lock appears with its contents (written under a temporary name,
+        then hard-linked to the lock's name, which fails if that exists), so
+        another run never reads an empty lock and takes it for a stale one.
+        File systems without hard links get an exclusive create and a write.
+        """
+        tmp = self.path.with_name(f".{self.path.name}.tmp-{os.getpid()}")
+        with open(tmp, "w", encoding="utf-8") as fh:
+            json.dump(me, fh)
+            fh.flush()
+            os.fsync(fh.fileno())
+        try:
+            os.link(tmp, self.path)
+        except FileExistsError:
+            return False
+        except OSError:  # no hard links here
             try:
                 fd = os.open(self.path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
             except FileExistsError:
+                return False
+            with os.fdopen(fd, "w") as fh:
+                json.dump(me, fh)
+                fh.flush()
+                os.fsync(fh.fileno())
+        finally:
+            tmp.unlink(missing_ok=True)  # (a run that holds the lock removes leftovers of killed ones)
+        return True
+
+    def __enter__(self) -> "_Lock":
+        me = {"pid": os.getpid(), "proc_start": _proc_start(os.getpid()), "started": _now()}
+        for _ in range(5):
+            if not self._create(me):
                 try:
-                    held = json.loads(self.path.read_text())
+                    text = self.path.read_bytes()
+                    held = json.loads(text)
                     pid = int(held["pid"])
+                except FileNotFoundError:
+                    continue  # its run has just ended
                 except (OSError, ValueError, KeyError, TypeError):
-                    held, pid = {}, -1  # unreadable lock (a crash while writing it): stale
+                    held, pid = {}, -1  # unreadable lock (a damaged file): stale
                 if pid > 0 and _alive(pid, held.get("proc_start")):
                     raise LockError(
                         f"{self.path.name}: another run (pid {pid}, started {held.get('started', '?')}) "
                         "is writing this output; wait for it or choose another -o"
                     ) from None
-                self.log(f"taking over stale lock of pid {pid} (started {held.get('started', '?')})")
                 try:
+                    if self.path.read_bytes() != text:
+                        continue  # another run has just taken it over: look again
                     self.path.unlink()
                 except FileNotFoundError:
-                    pass
+                    continue
+                self.log(f"taking over stale lock of pid {pid} (started {held.get('started', '?')})")
                 continue
-            with os.fdopen(fd, "w") as fh:
-                json.dump(me, fh)
-                fh.flush()
-                os.fsync(fh.fileno())
             self.owned = True
             return self
         raise LockError(f"{self.path.name}: could not take the lock; remove it if no run is active")
@@ -580,7 +610,7 @@ def _check_part(part: store.Part, name: str, gains: np.ndarray, kept: np.ndarray
 
 def _remove_leftovers(out: Path, parts: Path, log: _Log) -> None:
     """Delete temporary files of killed runs (we hold the lock, so none is being written)."""
-    found = list(out.parent.glob(f".{out.name}.tmp-*"))
+    found = list(out.parent.glob(f".{out.name}.tmp-*")) + list(out.parent.glob(f".{out.name}.lock.tmp-*"))
     if parts.exists():
         found += list(parts.glob(".*.tmp-*")) + list(parts.glob(".claim-*")) + list(parts.glob(".run-*"))
     for f in found:
@@ -783,6 +813,46 @@ def _remove_tree(folder: Path, log: _Log) -> None:
     log(f"could not remove {folder.name} ({last}); it is not needed any more")
 
 
+def _output_path(config: Config, out: str | os.PathLike | None) -> Path:
+    """The result file, its folder made; an unusable one is bad input, refused before any work.
+
+    The checks that would otherwise fail only at the very end (a folder
+    given as the output, a folder that cannot be made or written) are done
+    here, so a night's computation is never lost to a typo in ``-o``.
+    """
+    path = Path(out) if out is not None else Path("results") / f"{config.stem}.nc"
+    shown = str(out) if out is not None else str(path)
+    if path.name in ("", ".", ".."):
+        raise InputError(f"the output needs a file name, e.g. {path / (config.stem + '.nc')}", field="-o")
+    if path.is_dir():
+        raise InputError(f"{shown} is a folder; give a file name in it, e.g. {path / (config.stem + '.nc')}",
+                         field="-o")
+    if path.exists() and not store.is_result(path):
+        raise InputError(f"{shown} exists and is not a result of sweep; choose another -o (or remove that file)",
+                         field="-o")
+    for folder in (path.parent, *path.parent.parents):
+        if folder.exists() and not folder.is_dir():
+            raise InputError(f"{folder} is a file, not a folder; choose another -o", field="-o")
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise InputError(f"cannot make the folder {path.parent} ({err.strerror or err}); choose another -o",
+                         field="-o") from None
+    if not os.access(path.parent, os.W_OK | os.X_OK):
+        raise InputError(f"cannot write in the folder {path.parent}; choose another -o", field="-o")
+    return path
+
+
+def _check_scheduler(address: str) -> None:
+    """A Dask scheduler address must read ``tcp://HOST:PORT`` (or ``tls://``), checked before any work."""
+    import re
+
+    m = re.fullmatch(r"(tcp|tls)://(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.-]+):(\d{1,5})", address.strip())
+    if m is None or not 0 < int(m.group(3)) < 65536:
+        raise InputError(f"cannot read the scheduler address {address!r}; give tcp://HOST:PORT,"
+                         " e.g. tcp://10.0.0.5:8786", field="--scheduler")
+
+
 def run(
     config: Config,
     *,
@@ -821,19 +891,22 @@ def run(
     Raises
     ------
     InputError
-        The parts folder belongs to another config, or a parameter name clashes.
+        The parts folder belongs to another config, a parameter name clashes, the
+        output cannot be written (a folder, no write access) or the scheduler
+        address cannot be read.
     LockError
         Another live run writes the same output.
     Interrupted
         Ctrl-C; finished parts are kept and the message holds the resume command.
     """
     t_start = time.perf_counter()
-    out = Path(out) if out is not None else Path("results") / f"{config.stem}.nc"
     _check_names(config)
     count = designs.total_count(config)  # refuses oversized designs before anything is written
+    if scheduler is not None:
+        _check_scheduler(scheduler)
+    out = _output_path(config, out)
     size = int(config.sweep.chunk_size)
     jobs = _cpu_count() if jobs is None else max(1, int(jobs))
-    out.parent.mkdir(parents=True, exist_ok=True)
     parts = out.with_name(out.name + ".parts")
     log = _Log(out.with_name(out.name + ".log"))
 
@@ -849,9 +922,23 @@ def run(
         try:
             return _run_locked(config, out, parts, log, count, size, jobs, scheduler, quiet, t_start)
         except KeyboardInterrupt:
-            kept = len(list(parts.glob("chunk-*.nc"))) if parts.exists() else 0
+            kept = _parts_kept(parts)
             log(f"interrupted; {kept} chunks kept")
             raise Interrupted(f"interrupted; {kept} chunks kept", _resume_command(config, out)) from None
+        except BrokenProcessPool as err:
+            # a worker killed from outside (out of memory, kill -9) has no error of its own to show
+            kept = _parts_kept(parts)
+            log(f"failed: a worker process died ({type(err).__name__}); {kept} chunks kept")
+            raise SweepError(f"a worker process died without an error of its own (killed from outside, e.g. when"
+                             f" memory ran out); {kept} chunks kept; resume with: {_resume_command(config, out)}"
+                             ) from None
+        except BaseException as err:
+            log(f"failed: {type(err).__name__}: {' '.join(str(err).split())}; {_parts_kept(parts)} chunks kept")
+            raise
+
+
+def _parts_kept(parts: Path) -> int:
+    return len(list(parts.glob("chunk-*.nc"))) if parts.exists() else 0
 
 
 def _run_locked(config: Config, out: Path, parts: Path, log: _Log, count: int, size: int, jobs: int,
@@ -985,11 +1072,6 @@ def _compute_all(config: Config, parts: Path, log: _Log, variants: Variants, gai
         else:
             _run_local(todo, make, pool, done, worker_args=(fn, config, gains, mask, ranges), parts=parts,
                        check=check)
-    except KeyboardInterrupt:
-        raise
-    except BaseException as err:
-        log(f"failed: {type(err).__name__}: {err}; finished parts kept")
-        raise
     finally:
         bar.close()
     log(f"chunks done: {n_todo} in {time.perf_counter() - t0:.3f} s")

@@ -60,6 +60,7 @@ __all__ = [
     "open_result",
     "result_attrs",
     "result_is_complete",
+    "is_result",
 ]
 
 # part-only variables: the envelope's streaming sums, folded into abscissa_* by the merge
@@ -623,6 +624,18 @@ def open_result(path: str | os.PathLike):
     import xarray as xr
 
     return xr.open_dataset(Path(path), engine="netcdf4")
+
+
+def is_result(path: str | os.PathLike) -> bool:
+    """True if ``path`` is a readable result file of sweep (any config, any version).
+
+    A run replaces such a file, and refuses to replace anything else.
+    """
+    try:
+        with netCDF4.Dataset(Path(path)) as nc:
+            return {"config_sha256", "sweep_version"} <= set(nc.ncattrs())
+    except Exception:
+        return False
 
 
 def result_is_complete(path: str | os.PathLike, *, config_sha256: str, sweep_version: str) -> bool:

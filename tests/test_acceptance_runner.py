@@ -1,0 +1,241 @@
+"""Acceptance checks of the runner and the store on inputs the other tests do not list:
+unusable outputs and scheduler addresses, locks left in odd states, a worker killed from
+outside, Ctrl-C at every step of a run, and results that do not depend on the chunking."""
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from sweep import cli, designs, runner, store
+from sweep.config import load_config
+from sweep.errors import InputError, SweepError
+
+from test_runner import CONFIG, load, write_config
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory):
+    """An uninterrupted in-process run of the kiln loop of `test_runner`."""
+    folder = tmp_path_factory.mktemp("ref")
+    return load(runner.run(load_config(write_config(folder)), out=folder / "ref.nc", jobs=1, quiet=True))
+
+
+def files(folder) -> list[str]:
+    return sorted(p.name for p in folder.iterdir())
+
+
+# ------------------------------------------------------------------ bad outputs, bad addresses
+
+
+@pytest.mark.parametrize("how", ["a folder", "inside a file", "no file name", "not a result", "the config"])
+def test_unusable_output_refused_before_any_work(tmp_path, capsys, how):
+    """A typo in -o is found before the run starts, not when the finished result is renamed."""
+    cfg = write_config(tmp_path)
+    (tmp_path / "folder").mkdir()
+    (tmp_path / "notes.txt").write_text("my notes")
+    out = {"a folder": "folder", "inside a file": "notes.txt/r.nc", "no file name": "",
+           "not a result": "notes.txt", "the config": "kiln.toml"}[how]
+    out = str(tmp_path / out) if out else out
+    before = files(tmp_path)
+    assert cli.main(["run", str(cfg), "-o", out, "-j", "1", "--quiet"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("sweep run: -o: ") and "\n" not in err, err
+    assert files(tmp_path) == before and files(tmp_path / "folder") == []
+    assert (tmp_path / "notes.txt").read_text() == "my notes" and cfg.read_text() == CONFIG
+
+
+def test_result_of_another_config_is_replaced(tmp_path):
+    """A result written by sweep (of any config) is the one kind of file a run replaces."""
+    out = tmp_path / "r.nc"
+    runner.run(load_config(write_config(tmp_path, CONFIG.replace("seed = 5", "seed = 6"))), out=out, jobs=1, quiet=True)
+    runner.run(load_config(write_config(tmp_path)), out=out, jobs=1, quiet=True)
+    with xr.open_dataset(out) as ds:
+        assert ds.attrs["seed"] == 5
+
+
+@pytest.mark.parametrize("address", ["garbage", "127.0.0.1:8786", "tcp://host", "tcp://host:0", "tcp://h:99999",
+                                     "http://host:8786"])
+def test_scheduler_address_refused_before_any_work(tmp_path, capsys, address):
+    cfg = write_config(tmp_path)
+    assert cli.main(["run", str(cfg), "-o", str(tmp_path / "r.nc"), "--scheduler", address, "--quiet"]) == 2
+    assert "--scheduler: cannot read the scheduler address" in capsys.readouterr().err
+    assert files(tmp_path) == ["kiln.toml"]
+
+
+def test_scheduler_address_forms_accepted():
+    for address in ("tcp://10.0.0.5:8786", "tcp://node-3.cluster:8786", "tls://[::1]:8786", "tcp://localhost:1"):
+        runner._check_scheduler(address)
+
+
+# ------------------------------------------------------------------ locks
+
+
+def test_lock_damaged_or_of_a_reused_pid_is_stale(tmp_path):
+    """An empty lock (the disk filled up while it was written) and a lock whose pid now belongs
+    to another, later process are both stale; the lock's own temporary file is cleaned up."""
+    cfg = load_config(write_config(tmp_path))
+    out = tmp_path / "l.nc"
+    lock = tmp_path / "l.nc.lock"
+    lock.write_text("")
+    (tmp_path / ".l.nc.lock.tmp-99999").write_text("{}")  # a run killed while taking the lock
+    runner.run(cfg, out=out, jobs=1, quiet=True)
+    log = (tmp_path / "l.nc.log").read_text()
+    assert "taking over stale lock of pid -1" in log and "removed leftover .l.nc.lock.tmp-99999" in log
+    out.unlink()
+    # a live process that is not the run that wrote the lock: same pid, another start time
+    sleeper = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    try:
+        lock.write_text(json.dumps({"pid": sleeper.pid, "proc_start": "1", "started": "long ago"}))
+        runner.run(cfg, out=out, jobs=1, quiet=True)
+    finally:
+        sleeper.kill()
+        sleeper.wait()
+    assert f"taking over stale lock of pid {sleeper.pid}" in (tmp_path / "l.nc.log").read_text()
+    assert files(tmp_path) == ["kiln.toml", "l.nc", "l.nc.log"]
+
+
+def test_lock_appears_with_its_contents(tmp_path, monkeypatch):
+    """A second run never sees an empty lock of a live run (which it would take for a stale one)."""
+    seen = []
+    real_link = os.link
+
+    def link(src, dst):
+        seen.append(json.loads(open(src).read()))  # complete before the lock's name exists
+        return real_link(src, dst)
+
+    monkeypatch.setattr(runner.os, "link", link)
+    log = runner._Log(tmp_path / "x.log")
+    with runner._Lock(tmp_path / "x.lock", log):
+        held = json.loads((tmp_path / "x.lock").read_text())
+        assert held["pid"] == os.getpid() and seen == [held]
+        with pytest.raises(runner.LockError, match="another run"):
+            with runner._Lock(tmp_path / "x.lock", log):
+                pass
+    assert files(tmp_path) == []  # no lock, no temporary name; the log was never needed
+
+
+# ------------------------------------------------------------------ failures and Ctrl-C
+
+
+def _kill_self_in_worker(config, variants, gains, kept, *, here=os.getpid(), real=runner.compute_chunk):
+    """compute_chunk, except that a worker process is killed (SIGKILL) on its first real chunk."""
+    if os.getpid() != here and variants.count > 1:
+        os.kill(os.getpid(), signal.SIGKILL)
+    return real(config, variants, gains, kept)
+
+
+def test_worker_killed_from_outside(tmp_path, reference, monkeypatch):
+    """A worker killed by the system has no error of its own: one line, the resume command,
+    the parts finished so far kept; the rerun gives the uninterrupted result exactly."""
+    monkeypatch.setattr(runner, "_START_METHOD", "fork")  # the workers inherit the patch below
+    monkeypatch.setattr(runner, "compute_chunk", _kill_self_in_worker)
+    cfg = load_config(write_config(tmp_path))
+    out = tmp_path / "w.nc"
+    with pytest.raises(SweepError, match="worker process died") as info:
+        runner.run(cfg, out=out, jobs=2, quiet=True)
+    message = str(info.value)
+    assert "\n" not in message and runner._resume_command(cfg, out) in message
+    log = (tmp_path / "w.nc.log").read_text()
+    assert "failed: a worker process died" in log
+    assert not out.exists() and not (tmp_path / "w.nc.lock").exists()
+    kept = len(list((tmp_path / "w.nc.parts").glob("chunk-*.nc")))
+    assert f"{kept} chunks kept" in message
+    monkeypatch.undo()
+    runner.run(cfg, out=out, jobs=2, quiet=True)
+    xr.testing.assert_identical(load(out), reference)
+
+
+def test_failure_in_the_last_step_is_logged(tmp_path, monkeypatch):
+    real = store._publish
+
+    def publish(tmp, path):  # the parts are written, the result is not
+        if path.name == "f.nc":
+            raise OSError(28, "No space left on device")
+        real(tmp, path)
+
+    monkeypatch.setattr(store, "_publish", publish)
+    with pytest.raises(OSError, match="No space"):
+        runner.run(load_config(write_config(tmp_path)), out=tmp_path / "f.nc", jobs=1, quiet=True)
+    last = (tmp_path / "f.nc.log").read_text().splitlines()[-1]
+    assert "failed: OSError: [Errno 28] No space left on device; 6 chunks kept" in last
+    assert files(tmp_path) == ["f.nc.log", "f.nc.parts", "kiln.toml"]
+
+
+STEPS = [(runner, "nominal_gains", 1), (designs, "generate", 1), (runner, "_manifest", 1),
+         (store, "write_part", 3), (store.ResultWriter, "add", 4), (store.ResultWriter, "finish", 1),
+         (store, "_publish", 6), (runner, "_remove_tree", 1)]
+
+
+@pytest.mark.parametrize("obj, name, nth", STEPS, ids=[f"{s[1]}-{s[2]}" for s in STEPS])
+def test_ctrl_c_at_any_step(tmp_path, reference, monkeypatch, obj, name, nth):
+    """Ctrl-C in the set-up, while a part is written, merged or published, or while the parts
+    folder is removed: the resume command, no lock, and the rerun equals the uninterrupted run."""
+    cfg = load_config(write_config(tmp_path))
+    out = tmp_path / "c.nc"
+    real, calls = getattr(obj, name), []
+
+    def interrupted(*args, **kwargs):
+        calls.append(1)
+        if len(calls) == nth:
+            raise KeyboardInterrupt
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(obj, name, interrupted)
+    with pytest.raises(runner.Interrupted) as info:
+        runner.run(cfg, out=out, jobs=1, quiet=True)
+    assert info.value.resume_command == runner._resume_command(cfg, out)
+    assert "interrupted;" in (tmp_path / "c.nc.log").read_text()
+    assert not (tmp_path / "c.nc.lock").exists()
+    monkeypatch.undo()
+    runner.run(cfg, out=out, jobs=1, quiet=True)  # a plain rerun
+    xr.testing.assert_identical(load(out), reference)
+    assert files(tmp_path) == ["c.nc", "c.nc.log", "kiln.toml"]
+
+
+# ------------------------------------------------------------------ chunking
+
+
+MANY_DESIGNS = CONFIG.replace('designs = ["nominal", "corners", "random"]',
+                              'designs = ["lhs", "grid", "nominal", "sobol", "corners", "random"]').replace(
+    "samples = 21", "samples = 6\nlevels = 2").replace('keep = "corners"', 'keep = "random:100"')
+
+
+def test_results_do_not_depend_on_the_chunking(tmp_path):
+    """One variant per chunk, a count that is not a multiple of the chunk, one chunk larger than
+    the run: every variable equal bit for bit (the mean of the envelope to rounding)."""
+    runs = []
+    for size in (1, 4, 1000):
+        text = MANY_DESIGNS.replace("chunk_size = 5", f"chunk_size = {size}")
+        out = runner.run(load_config(write_config(tmp_path, text, f"c{size}.toml")), out=tmp_path / f"c{size}.nc",
+                         jobs=1, quiet=True)
+        runs.append(load(out))
+    first = runs[0]
+    # nominal first, then the designs in config order: 6 lhs, 2^3 grid, 6 sobol, 8 corners, 6 random
+    counts = {"nominal": 1, "lhs": 6, "grid": 8, "sobol": 6, "corners": 8, "random": 6}
+    assert list(first.design.values) == [d for d, n in counts.items() for _ in range(n)]
+    assert first.sizes["locus_variant"] == 35  # random:100 of 35 variants keeps them all
+    for other in runs[1:]:
+        assert set(other.variables) == set(first.variables)
+        for name in first.variables:
+            a, b = first[name], other[name]
+            assert a.dtype == b.dtype and a.dims == b.dims and a.attrs == b.attrs, name
+            if name == "abscissa_mean":  # sums folded chunk by chunk
+                np.testing.assert_allclose(a.values, b.values, rtol=1e-13)
+            else:
+                assert np.array_equal(a.values, b.values, equal_nan=a.dtype.kind == "f"), name
+
+
+def test_input_error_names_its_field_for_parameter_clash(tmp_path):
+    """A parameter named like a dataset variable is refused before anything is written."""
+    text = CONFIG.replace("M = { nominal = 3.0", "design = { nominal = 3.0").replace("transfer = \"M /",
+                                                                                  "transfer = \"design /")
+    with pytest.raises(InputError, match="parameters.design"):
+        runner.run(load_config(write_config(tmp_path, text)), out=tmp_path / "n.nc", jobs=1, quiet=True)
+    assert files(tmp_path) == ["kiln.toml"]
