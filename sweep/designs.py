@@ -16,9 +16,10 @@ Choices written down here (DESIGN.md leaves them open):
 - **Distributions.** ``uniform`` parameters are uniform on ``[low, high]``.
   ``normal`` parameters are a normal with mean ``nominal`` and
   ``sigma = (high - low) / 6`` (the tolerance is 3 sigma; for symmetric
-  bounds this is ``tol / 3``), truncated at ``[low, high]`` with
-  `scipy.stats.truncnorm`; with asymmetric bounds the mean stays at the
-  nominal and the truncation is asymmetric. ``random``, ``lhs`` and
+  bounds this is ``tol / 3``), truncated at ``[low, high]`` (drawn through
+  the inverse distribution function by `scipy.special.ndtr` / `ndtri`, the
+  same values as `scipy.stats.truncnorm`); with asymmetric bounds the peak
+  stays at the nominal and the truncation is asymmetric. ``random``, ``lhs`` and
   ``sobol`` all draw points of the unit cube and map each coordinate through
   the parameter's inverse distribution function, so LHS strata and Sobol
   balance carry over to the normal parameters.
@@ -27,7 +28,8 @@ Choices written down here (DESIGN.md leaves them open):
   order (the first uncertain parameter is the most significant digit: all
   ``low`` first), the grid is ``levels^p`` points with ``levels`` evenly
   spaced values from low to high (ends included), last parameter fastest.
-  ``levels = 1`` puts the single level at the nominal.
+  The config asks for ``levels >= 2`` (both ends of every range); called
+  with ``levels = 1`` directly, the grid is the nominal point.
 - **Sobol sample counts.** A Sobol sequence is balanced only in powers of
   two. For any ``samples`` we draw the next power of two with
   ``random_base2`` (no warning is raised) and keep the first ``samples``
