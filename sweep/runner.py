@@ -382,6 +382,10 @@ def compute_chunk(config: Config, variants: Variants, gains: np.ndarray, kept: n
     return store.Part(variables, tuple(coords), {})
 
 
+# the module's own chunk computation, for the layout parts must have (tests may replace `compute_chunk`)
+_own_compute_chunk = compute_chunk
+
+
 def _locus_vars(traced) -> dict[str, store.Var]:
     """Kept loci (float32) and the chunk's envelope arrays, from a `sweep.locus.ChunkLocus`."""
     dims = ("locus_variant", "gain", "branch")
@@ -985,10 +989,15 @@ def _compute_and_merge(config: Config, out: Path, parts: Path, log: _Log, varian
             writer.sync()
             merge_pause(writer.added)
 
+    layout: list[store.Part] = []  # one variant's part, made when first needed: what every part must hold
+
     def check(i: int, path: Path) -> store.Part:
         """A part on disk, read and checked against this run (`store.PartError` if it does not belong)."""
         a, b = ranges[i]
         part = store.read_part(path, config_sha256=config.sha256, start=a, stop=b)
+        if not layout:  # a part laid out otherwise (another version of sweep) is computed again
+            layout.append(_own_compute_chunk(config, variants.slice(0, 1), gains, mask[:1]))
+        store.check_layout(layout[0], part, path.name)
         _check_part(part, path.name, gains, kept[(kept >= a) & (kept < b)])
         for name, values in variants.values.items():
             if name not in part or not np.array_equal(part[name], values[a:b]):

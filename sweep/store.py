@@ -61,6 +61,7 @@ __all__ = [
     "result_attrs",
     "result_is_complete",
     "is_result",
+    "check_layout",
 ]
 
 # part-only variables: the envelope's streaming sums, folded into abscissa_* by the merge
@@ -393,18 +394,23 @@ def _define(out: netCDF4.Dataset, name: str, var: Var, coords_attr: str | None) 
     return v
 
 
-def _same_layout(first: Part, part: Part, name: str) -> None:
-    """A part must hold the same variables, with the same widths, as the first one."""
-    hint = "; remove the parts folder and run again (written by another version of sweep?)"
+def check_layout(first: Part, part: Part, name: str, hint: str = "") -> None:
+    """A part must hold the same variables, with the same dimensions and widths, as ``first``.
+
+    Raises
+    ------
+    PartError
+        Naming ``name`` and the first difference found, then ``hint``.
+    """
     if list(part.variables) != list(first.variables):
-        raise PartError(f"{name}: holds other variables than the first part{hint}")
+        raise PartError(f"{name}: holds other variables than the other parts{hint}")
     for vname, var in part.variables.items():
         ref = first.variables[vname]
         if var.dims != ref.dims or any(
             d not in ("variant", "locus_variant") and a != b
             for d, a, b in zip(var.dims, np.shape(var.values), np.shape(ref.values))
         ):
-            raise PartError(f"{name}: variable {vname} has another shape than in the first part{hint}")
+            raise PartError(f"{name}: variable {vname} has another shape than in the other parts{hint}")
 
 
 class ResultWriter:
@@ -479,7 +485,8 @@ class ResultWriter:
         if self._nc is None:
             self._create(part)
         else:
-            _same_layout(self._first, part, name)
+            check_layout(self._first, part, name,
+                         "; remove the parts folder and run again (written by another version of sweep?)")
         k0 = int(np.searchsorted(self.kept, a))
         lv = part["locus_variant"] if "locus_variant" in part else np.zeros(0, np.int64)
         if not np.array_equal(self.kept[k0:k0 + lv.size], lv) or (

@@ -199,6 +199,55 @@ def test_ctrl_c_at_any_step(tmp_path, reference, monkeypatch, obj, name, nth):
     assert files(tmp_path) == ["c.nc", "c.nc.log", "kiln.toml"]
 
 
+# ------------------------------------------------------------------ damaged parts
+
+
+def _stopped_before_merge(config, out) -> None:
+    """A run that wrote all its parts and stopped before publishing the result."""
+    real = store.ResultWriter.finish
+
+    def stop(*args, **kwargs):
+        raise RuntimeError("stopped before the merge")
+
+    store.ResultWriter.finish = stop
+    try:
+        with pytest.raises(RuntimeError, match="stopped"):
+            runner.run(config, out=out, jobs=1, quiet=True)
+    finally:
+        store.ResultWriter.finish = real
+
+
+def test_every_kind_of_damaged_part_is_computed_again(tmp_path, reference):
+    """Empty, garbage, cut short, another config's hash, a part of another config, a part laid out
+    by another version (one variable less), a manifest removed: each part is computed again."""
+    import netCDF4
+
+    cfg = load_config(write_config(tmp_path))
+    out = tmp_path / "x.nc"
+    _stopped_before_merge(cfg, out)
+    _stopped_before_merge(load_config(write_config(tmp_path, CONFIG.replace("seed = 5", "seed = 6"), "o.toml")),
+                          tmp_path / "o.nc")
+    parts = tmp_path / "x.nc.parts"
+    (parts / "chunk-00000.nc").write_bytes(b"")
+    (parts / "chunk-00001.nc").write_bytes(b"not a netCDF file " * 50)
+    cut = parts / "chunk-00002.nc"
+    cut.write_bytes(cut.read_bytes()[:-100])
+    with netCDF4.Dataset(parts / "chunk-00003.nc", "a") as nc:
+        nc.setncattr("config_sha256", "0" * 64)
+    (parts / "chunk-00004.nc").write_bytes((tmp_path / "o.nc.parts" / "chunk-00004.nc").read_bytes())
+    older = store.read_part(parts / "chunk-00005.nc")
+    del older.variables["dominance_ratio"]
+    store.write_part(older, parts / "chunk-00005.nc")
+    (parts / "manifest.json").unlink()
+    runner.run(cfg, out=out, jobs=1, quiet=True)
+    log = (tmp_path / "x.nc.log").read_text()
+    for i, why in enumerate(["unreadable", "unreadable", "unreadable", "written for another config",
+                             "written for another config", "holds other variables"]):
+        assert f"chunk {i}: chunk-0000{i}.nc: {why}" in log, why
+    assert "0 valid on disk, 6 to compute" in log
+    xr.testing.assert_identical(load(out), reference)
+
+
 # ------------------------------------------------------------------ chunking
 
 
