@@ -50,8 +50,10 @@ AXIS_RTOL = 1e-13
 # both below this fraction: a root on the axis common to N and D (fixed for every k)
 FIXED_RTOL = 1e-8
 # an operating gain this close (relative) to a boundary gain, or within ten times
-# the boundary gain's estimated error, is on the boundary
+# the boundary gain's estimated error (at most ON_BOUNDARY_MAX: a tangent touch
+# has an unbounded first-order estimate but about half the digits), is on the boundary
 ON_BOUNDARY_RTOL = 1e-14
+ON_BOUNDARY_MAX = 1e-6
 EPS = 2.220446049250313e-16
 # Routh rules: the same constants as the numpy Routh array
 ROUTH_ZERO_RTOL = _ZERO_RTOL
@@ -288,6 +290,13 @@ def _test_gain(a: float, b: float) -> float:
     if a > 0.0 and b > 4.0 * a:
         return math.sqrt(abs(a * b))
     return 0.5 * (a + b)
+
+
+@njit(cache=True, error_model="numpy")
+def _near(kb: float, err: float, k: float) -> bool:
+    """Is gain ``k`` the boundary gain ``kb`` (relative error estimate ``err``) to its accuracy?"""
+    tol = min(max(ON_BOUNDARY_RTOL, 10.0 * err), ON_BOUNDARY_MAX)
+    return abs(kb - k) <= tol * abs(kb)
 
 
 @njit(cache=True, error_model="numpy")
@@ -756,6 +765,9 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
         tg, cn, ex = tgs[i_], cnt[i_], exists[i_]
         ill = False
         fixed_axis = False
+        # a root on the axis at the operating gain from a crossing left out at an
+        # end of the range (an operating gain may sit at an end; a boundary may not)
+        op_axis = False
 
         # -- axis crossings from the positive real roots u of F --------------------
         for i in range(du):
@@ -803,6 +815,8 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
                 if lo < 0.0 < hi:
                     bg[i] = 0.0
                     bw[i] = w * w0v
+                elif has_op and k_op == 0.0:
+                    op_axis = True
                 continue
             ks = _cdiv(-Dj, sigma * Nj)
             if not math.isfinite(ks.real):
@@ -823,12 +837,16 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
                 bg[i] = kc
                 bw[i] = w * w0v
                 be[i] = est if conv else max(est, CROSSING_RTOL)
+            elif has_op and _near(kc, est if conv else max(est, CROSSING_RTOL), k_op):
+                op_axis = True
         # root through the origin
         n0 = Nv[m]
         d0 = Dv[n]
         if n0 == 0.0 and d0 == 0.0:
             fixed_axis = True
         k_org = -d0 / (sigma * n0) + 0.0 if n0 != 0.0 else nan    # + 0.0: no -0.0
+        if has_op and _near(k_org, EPS, k_op):
+            op_axis = True
         if not (k_org - 2.0 * EPS * abs(k_org) > lo and k_org + 2.0 * EPS * abs(k_org) < hi):
             k_org = nan     # outside the range, or at one of its ends to rounding
         bg[du] = k_org
@@ -837,6 +855,8 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
         # root through infinity
         if m == n:
             k_inf = -Dv[0] / (sigma * Nv[0]) + 0.0 if Nv[0] != 0.0 else nan
+            if has_op and _near(k_inf, EPS, k_op):
+                op_axis = True
             if not (k_inf - 2.0 * EPS * abs(k_inf) > lo and k_inf + 2.0 * EPS * abs(k_inf) < hi):
                 k_inf = nan
             bg[du + 1] = k_inf
@@ -883,11 +903,11 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
         j = 0
         # an operating gain that equals a boundary gain to within the latter's
         # accuracy has roots on the axis: marginal, not stable
-        on_boundary = False
+        on_boundary = op_axis
         for i in range(nvalid):
             if bg[i] < ref:
                 j += 1
-            if has_op and abs(bg[i] - ref) <= max(ON_BOUNDARY_RTOL, 10.0 * be[i]) * abs(bg[i]):
+            if has_op and _near(bg[i], be[i], ref):
                 on_boundary = True
         sref = stable_iv[j] and not on_boundary
         if sref:
@@ -1016,13 +1036,25 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
             fV[FV_DAMP, v] = min_damp
             dom = nan
             if not any_nan:
-                # dominance: next-slowest distinct real part over the slowest's
-                tol = 1e-9 * max(abs(slow), 1e-300)
+                # dominance: the slowest mode is the slowest pole with its conjugate
+                # partner; the next-slowest is any other pole (another mode as slow
+                # as the dominant one gives 1)
+                islow = 0
+                for i in range(n):
+                    if fP[3, v, i] > fP[3, v, islow]:
+                        islow = i
+                ys = fP[4, v, islow]
+                tol = 1e-9 * _cabs(complex(slow, ys))
+                ipart = -1
+                if abs(ys) > tol:
+                    for i in range(n):
+                        if (i != islow and ipart < 0 and abs(fP[3, v, i] - slow) <= tol
+                                and abs(fP[4, v, i] + ys) <= tol):
+                            ipart = i
                 nxt = -math.inf
                 for i in range(n):
-                    re = fP[3, v, i]
-                    if not abs(re - slow) <= tol:
-                        nxt = max(nxt, re)
+                    if i != islow and i != ipart:
+                        nxt = max(nxt, fP[3, v, i])
                 if math.isfinite(nxt) and sref:
                     dom = nxt / slow
             fV[FV_DOM, v] = dom

@@ -39,7 +39,12 @@ Numerical rules (constants in `sweep._analysis_kernel`):
   both below ``1e-8``: a root common to ``N`` and ``D`` on the axis
   (``fixed_axis_root``, never stable);
 * an operating gain equal to a boundary gain within that gain's estimated
-  error (at least ``1e-14`` relative) is on the boundary: not stable;
+  error (at least ``1e-14``, at most ``1e-6`` relative: a tangent touch has
+  an unbounded first-order estimate but half the digits) is on the
+  boundary: not stable; so is an operating gain at an end of the range
+  where a root is on the axis (a crossing there is no boundary gain);
+* the dominance ratio compares the slowest mode (a pole with its conjugate)
+  with the slowest other pole, so two equally slow modes give 1;
 * the Routh count agrees with the eigenvalues when it lies between the
   counts of roots with real part above ``1e-9 |z|`` and above ``-1e-9 |z|``;
 * ``ill_conditioned`` is set by: a crossing whose first-order error
@@ -189,10 +194,14 @@ def _check_inputs(N, D, sigma, gain_range, operating_gain):
     except (TypeError, ValueError, IndexError):
         raise InputError(f"gain_range must be two numbers [low, high]; got {gain_range!r}",
                          field="loop.gain_range") from None
-    if math.isnan(lo) or math.isnan(hi) or not lo < hi:
-        raise InputError(f"gain_range needs low < high; got [{lo}, {hi}]", field="loop.gain_range")
+    if math.isnan(lo) or math.isnan(hi) or not lo < hi or math.isinf(lo):
+        raise InputError(f"gain_range needs a finite low < high; got [{lo}, {hi}]", field="loop.gain_range")
     if operating_gain is not None:
-        k0 = float(operating_gain)
+        try:
+            k0 = float(operating_gain)
+        except (TypeError, ValueError):
+            raise InputError(f"operating_gain must be a number; got {operating_gain!r}",
+                             field="loop.operating_gain") from None
         if not (math.isfinite(k0) and lo <= k0 <= hi):
             raise InputError(f"operating_gain {k0} must be a finite gain inside gain_range [{lo}, {hi}]",
                              field="loop.operating_gain")
@@ -445,6 +454,8 @@ class LoopAnalysis:
 
 def _coeff_list(x, what: str) -> np.ndarray:
     try:
+        if isinstance(x, (str, bytes)):
+            raise TypeError     # a string would be read digit by digit
         a = np.asarray([float(v) for v in x], dtype=float)
     except (TypeError, ValueError):
         raise InputError(f"{what} must be a list of numbers (highest power first); got {x!r}",
@@ -502,7 +513,7 @@ def analyze(num, den, *, feedback: str = "negative", gain_range=(0.0, math.inf),
     zeros = (r["open_loop_zero_real"] + 1j * r["open_loop_zero_imag"]).tolist()
     n, m = Dn.size - 1, N.size - 1
     if m < n:
-        positive = sigma * N[0] / Dn[0] > 0
+        positive = sigma * np.sign(N[0]) * np.sign(Dn[0]) > 0     # signs only: no overflow
         q = np.arange(n - m)
         ang = (2 * q + 1) * 180.0 / (n - m) if positive else q * 360.0 / (n - m)
         ang = np.where(ang > 180.0, ang - 360.0, ang)
