@@ -541,7 +541,8 @@ def branch_and_bound(
         "sensitivity": split the side with the largest ``weight * relative
         width``, weights from `_split_weights` (falls back to "widest"
         without ``coefficients``); "widest": the widest side relative to the
-        parameter's tolerance width.
+        parameter's tolerance width.  Boxes not yet proven stable at the
+        reference gain always split their widest side.
 
     Returns
     -------
@@ -609,10 +610,9 @@ def branch_and_bound(
     bound, status = _bounds(enclose, B_lo, B_hi, sigma, gain_range, reference)
     n_boxes = 1
     B_L = bound
-    w_crit = w_stab = np.ones(p)
+    w_crit = np.ones(p)
     if split == "sensitivity" and coefficients is not None and p > 1:
-        w_crit, w_stab = _split_weights(enclose, coefficients, best_x, low, high, sigma, gain_range, reference,
-                                        best_val)
+        w_crit = _split_weights(enclose, coefficients, best_x, low, high, sigma, gain_range, reference)
 
     def open_lower() -> float:
         if B_L.size == 0:
@@ -649,9 +649,12 @@ def branch_and_bound(
             state = "stalled"  # a single point: nothing to split
             break
         rel = (s_hi - s_lo) / scale
-        # proven boxes: the sides that blur the critical gain most; boxes not yet proven stable
-        # at the reference: the sides that blur the closed-loop roots near the reference most
-        axis = np.where(s_st == OK, np.argmax(rel * w_crit, axis=1), np.argmax(rel * w_stab, axis=1))
+        # proven boxes: the sides that blur the critical gain most
+        # boxes not yet proven stable at the reference: the widest side.  What keeps Kharitonov
+        # on an enclosure from proving stability is the dependency of coefficients on shared
+        # parameters, which a first-order estimate at one point does not see (a stiff converter
+        # loop spent its whole budget halving the input voltage, which enters one factor only)
+        axis = np.where(s_st == OK, np.argmax(rel * w_crit, axis=1), np.argmax(rel, axis=1))
         if np.all(np.max(rel, axis=1) < 1e-12):
             state = "stalled"  # boxes are points: nothing more can be proven here
             break
@@ -716,9 +719,8 @@ def _split_weights(
     sigma: int,
     gain_range: tuple[float, float],
     reference: float,
-    crit: float,
     floor: float = 1e-2,
-) -> tuple[np.ndarray, np.ndarray]:
+) -> np.ndarray:
     """First-order estimates of how much each side of the box costs the proof.
 
     For a quantity ``f`` of the loop's coefficients ``c_j`` (those of ``N`` and ``D``), the
@@ -731,11 +733,10 @@ def _split_weights(
 
     Returns
     -------
-    (w_crit, w_stab)
-        ``f`` = the critical gain (for boxes with a proven bound), and ``f`` = the largest real
-        part of the closed-loop roots at a gain just above the reference (for boxes not yet
-        proven stable there).  Each normalised to a maximum of 1, with a floor so that every
-        side is split eventually; all ones where the estimate is unavailable.
+    numpy.ndarray
+        ``(p,)`` weights for ``f`` = the critical gain (used for boxes with a proven bound),
+        normalised to a maximum of 1, with a floor so that every side is split eventually;
+        all ones where the estimate is unavailable.
     """
     p = low.size
     ones = np.ones(p)
@@ -765,12 +766,7 @@ def _split_weights(
         return np.maximum(w / w.max(), floor)
 
     g = pencil_critical_gains(C[:, :m1], C[:, m1:], sigma=sigma, gain_range=gain_range, reference=reference)
-    k_test = reference + (0.05 * (crit - reference) if math.isfinite(crit) else 0.05 * max(1.0, reference))
-    Nc, Dc = C[:, :m1], C[:, m1:]
-    P = Dc + sigma * k_test * _pad_front(Nc, Dc.shape[1])
-    r = _roots_stacked(P)
-    abscissa = np.max(np.where(np.isnan(r.real), -np.inf, r.real), axis=1) if r.shape[1] else np.zeros(2 * q)
-    return weights(g), weights(abscissa)
+    return weights(g)
 
 
 def _start_points(low: np.ndarray, high: np.ndarray) -> np.ndarray:
@@ -1287,6 +1283,8 @@ def format_certificate(result: dict[str, Any]) -> str:
                      f"everywhere); the smallest value found is {num(result['upper'])}")
     elif st == "exact":
         lines.append(f"worst-case critical gain: {num(result['lower'])} (exact)")
+    elif st == "certified" and result["lower"] == result["upper"]:  # both inf: nothing to bracket
+        lines.append(f"worst-case critical gain: {num(result['lower'])}, proven over the whole box")
     else:
         lines.append(f"worst-case critical gain between {num(result['lower'])} and {num(result['upper'])}"
                      + ("" if st == "certified" else " (requested tolerance not reached)"))
