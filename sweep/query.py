@@ -747,8 +747,11 @@ def format_summary(summary: dict, ds: xr.Dataset) -> str:
             kind = _CERT_KIND.get(cert.get("status"), "guaranteed bounds")
             if cert.get("exact"):
                 kind = "exact"
-            wrows.append(("certified worst case",
-                          f"[{_num(cert['lower'])}, {_num(cert['upper'])}] ({cert.get('method')}, {kind})"))
+            if _num(cert["lower"]) == "-" and _num(cert["upper"]) == "-":
+                bracket = f"none ({cert.get('method')}: {kind})"
+            else:
+                bracket = f"[{_num(cert['lower'])}, {_num(cert['upper'])}] ({cert.get('method')}, {kind})"
+            wrows.append(("certified worst case", bracket))
         lines += _table(wrows, indent=2)
         lines.append("  parameters:")
         prow = []

@@ -300,3 +300,13 @@ def test_query_text_without_parameters_and_with_one_variant():
         figure(ds, "limits")
     with pytest.raises(InputError, match="envelope, crossings or locus"):
         figure(ds, "plane")
+
+
+def test_query_text_shows_an_undefined_certificate_as_none(runs):
+    ds = runs["hoist"]  # some variants unstable at the reference gain
+    cert = {"lower": math.nan, "upper": math.nan, "method": "branch-and-bound", "exact": False,
+            "status": "unstable_at_reference"}
+    text = format_summary(summarize(ds, certificate=cert), ds)
+    line = next(x for x in text.splitlines() if "certified worst case" in x)
+    assert "none (branch-and-bound: some variant is unstable at the reference gain)" in line
+    assert "[-" not in line
