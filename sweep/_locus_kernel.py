@@ -5,7 +5,7 @@ predict every branch (quadratic in ``k`` from the last two gains and the
 root velocity ``ds/dk``), correct with Newton on ``P = D + sigma k N``,
 accept the step only when every root converged and stayed well inside its
 own neighbourhood, and otherwise redo the step from the companion-matrix
-roots matched optimally to the (capped) prediction. The rules are those
+roots matched optimally to the previous roots. The rules are those
 documented in `sweep.locus.trace`; this module only makes them run without
 a Python loop per variant or per gain.
 
@@ -133,37 +133,27 @@ def _horner(c, z: complex) -> complex:
 
 
 @njit(cache=True, error_model="numpy")
-def _fallback_step(P, nz, pred, prev, out, scratch_roots, cost, perm, work, wr, wi,
+def _fallback_step(P, nz, prev, out, scratch_roots, cost, perm, work, wr, wi,
                    u, v, p, way, minv, used, qr_max_its) -> bool:
-    """Companion roots of P (degree n - nz) matched to the capped prediction, into ``out``.
+    """Companion roots of P (degree n - nz) matched to the previous roots, into ``out``.
 
-    Returns False when the QR iteration failed (the caller redoes the variant).
+    The assignment has the minimum total distance to ``prev`` (the branch
+    continuity rule; a prediction can be confidently wrong next to a
+    multiple root, where ``ds/dk`` is unbounded). Returns False when the QR
+    iteration failed (the caller redoes the variant).
     """
-    n = pred.shape[0]
+    n = prev.shape[0]
     deg = n - nz
     for i in range(n):
         scratch_roots[i] = _NAN
     if deg > 0:
         if not companion_roots(P[nz:], scratch_roots[:deg], work, wr, wi, qr_max_its):
             return False
-    # cap each predicted step at half the distance from its root to the nearest other root
     for i in range(n):
-        nn = np.inf
-        for j in range(n):
-            if j != i:
-                d = abs(prev[i] - prev[j])
-                if math.isfinite(d) and d < nn:
-                    nn = d
-        step = pred[i] - prev[i]
-        a = abs(step)
-        lim = 0.5 * nn
-        sc = 1.0
-        if a > lim and math.isfinite(lim):
-            sc = lim / a
-        q = prev[i] + step * sc
-        out[i] = q if _finite(q) else pred[i]
-    # cost matrix: a missing root costs 0 against every prediction; a missing
-    # prediction costs the same large constant against every finite root
+        out[i] = prev[i]
+    # cost matrix: a missing root costs 0 against every previous root; a missing
+    # previous root (one at infinity) costs the same large constant against every
+    # finite root
     any_bad = False
     fmax = 0.0
     for i in range(n):
@@ -197,6 +187,8 @@ def _newton_quotient(pr: float, pi: float, dr: float, di: float):
     den = dr * dr + di * di
     if den > 1e-280 and den < 1e280:
         return (pr * dr + pi * di) / den, (pi * dr - pr * di) / den
+    if dr == 0.0 and di == 0.0:
+        return math.nan, math.nan   # P' = 0 (a multiple root): no Newton step
     q = complex(pr, pi) / complex(dr, di)
     return q.real, q.imag
 
@@ -386,6 +378,7 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
     ar = np.empty((n, B))
     last = np.empty((n, B))
     near2 = np.empty((n, B))
+    nearp = np.empty((n, B))
     hr = np.empty(B)
     hi = np.empty(B)
     sc = np.empty(B)
@@ -396,7 +389,6 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
     failed = np.empty(B, dtype=np.bool_)
     # one variant's scratch for the scalar paths
     Pl = np.empty(w)
-    pred = np.empty(n, dtype=np.complex128)
     prev = np.empty(n, dtype=np.complex128)
     zc = np.empty(n, dtype=np.complex128)
     roots = np.empty(n, dtype=np.complex128)
@@ -560,13 +552,18 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
                 if not done[b]:
                     stats[ST_NOT_CONVERGED] += 1
             # -- separation: each correction under `dominance` of the distance from its
-            # prediction to the nearest other prediction
+            # prediction to the nearest other prediction; and each root moved under half
+            # the distance from its previous root to the nearest other previous root,
+            # which makes keeping the order the unique minimum-total-distance
+            # assignment to the previous roots (the continuity rule): a prediction
+            # can be confidently wrong just past a multiple root
             for b in range(L):
                 good[b] = done[b]
             if n > 1:
                 for i in range(n):
                     for b in range(L):
                         near2[i, b] = np.inf
+                        nearp[i, b] = np.inf
                 for i in range(n):
                     for j in range(i + 1, n):
                         for b in range(L):
@@ -575,6 +572,11 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
                             d2 = xr * xr + xi * xi
                             near2[i, b] = min(near2[i, b], d2)
                             near2[j, b] = min(near2[j, b], d2)
+                            xr = p1r[i, b] - p1r[j, b]
+                            xi = p1i[i, b] - p1i[j, b]
+                            d2 = xr * xr + xi * xi
+                            nearp[i, b] = min(nearp[i, b], d2)
+                            nearp[j, b] = min(nearp[j, b], d2)
                 for b in range(L):
                     flag[b] = False  # some root of b is not separated
                 for i in range(n):
@@ -582,6 +584,10 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
                         xr = zr[i, b] - qr[i, b]
                         xi = zi[i, b] - qi[i, b]
                         if not (xr * xr + xi * xi < d3 * near2[i, b]):
+                            flag[b] = True
+                        xr = zr[i, b] - p1r[i, b]
+                        xi = zi[i, b] - p1i[i, b]
+                        if not (xr * xr + xi * xi < 0.25 * nearp[i, b]):
                             flag[b] = True
                 for b in range(L):
                     if done[b] and flag[b]:
@@ -598,9 +604,8 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
                 while nz < w and abs(Pl[nz]) <= 16.0 * eps * (abs(Dt[nz, b]) + abs(k * Nt[nz, b])):
                     nz += 1
                 for i in range(n):
-                    pred[i] = complex(qr[i, b], qi[i, b])
                     prev[i] = complex(p1r[i, b], p1i[i, b])
-                if not _fallback_step(Pl, min(nz, n), pred, prev, zc, roots, cost, perm, work, wr, wi,
+                if not _fallback_step(Pl, min(nz, n), prev, zc, roots, cost, perm, work, wr, wi,
                                       u, vv, pp, way, minv, used, qr_max_its):
                     failed[b] = True
                     status[start + b] = 0
@@ -644,7 +649,10 @@ def continue_branches(N, D, sg, gains, poles, first, vel0, keep_row, op_index,
                         nx = complex(Nt[0, b])
                         for j in range(1, w):
                             nx = nx * x + Nt[j, b]
-                        y = -sg * nx / dpx
+                        # P' = 0: a multiple root exactly on a grid gain (a
+                        # breakaway point) has no velocity; the next prediction
+                        # falls back to the root itself
+                        y = -sg * nx / dpx if dpx != 0.0 else _NAN
                         if not (_is_finite(y.real) and _is_finite(y.imag)):
                             y = _NAN
                         vr[i, b] = y.real

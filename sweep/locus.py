@@ -431,10 +431,9 @@ def trace(N, D, *, sigma: int, gains, method: str = "continuation",
         complex128 ``(V, G, n)``.  Branch ``j`` starts at the ``j``-th
         open-loop pole in sorted order (by real part, then imaginary part)
         and is continuous along the grid: between consecutive gains the
-        roots are matched to a prediction of each branch (quadratic
-        extrapolation in ``k`` using the root velocity
-        ``ds/dk = -sigma N(s) / P'(s)``) by minimum total distance.  Branches
-        end at the zeros or along the asymptotes.
+        roots are assigned to the branches with the minimum total distance
+        from each branch's previous root.  Branches end at the zeros or
+        along the asymptotes.
 
     Notes
     -----
@@ -442,23 +441,26 @@ def trace(N, D, *, sigma: int, gains, method: str = "continuation",
     gain and a root passes through infinity.  At a grid gain where a leading
     coefficient of ``P`` is zero to rounding (``|p_0| <= 16 eps (|d_0| +
     k |n_0|)``), the degree of ``P`` drops and the missing root is NaN on
-    the branch whose prediction the finite roots fit worst (the one that was
+    the branch whose previous root the finite roots fit worst (the one that was
     heading out to infinity); on the next gain the returning root joins that
     branch again.
 
-    Continuation (compiled, `sweep._locus_kernel`, one variant at a time)
-    corrects the prediction with at least two Newton steps and accepts a
-    variant's step only when every root converged (last step below
-    ``1e-12`` of the root scale, or a contracting step whose geometric tail
-    is, or a residual at the rounding level of the evaluation) and every
-    correction is under a third of the distance from its prediction to the
-    nearest other prediction (so each root is the nearest one to its own
-    prediction by a factor two, and no two predictions converged to one
-    root).  Otherwise - near break-away points, where real roots must leave
-    the real axis, on coarse grids, at degree drops - that step is redone
-    with the companion-matrix roots matched optimally to the prediction
-    (each predicted step capped at half the distance to the nearest other
-    root).  Should the compiled QR iteration itself fail, the whole variant
+    Continuation (compiled, `sweep._locus_kernel`) predicts each root
+    (quadratic extrapolation in ``k`` with the root velocity
+    ``ds/dk = -sigma N(s) / P'(s)``), corrects the prediction with at least
+    two Newton steps and accepts a variant's step only when every root
+    converged (last step below ``1e-12`` of the root scale, or a contracting
+    step whose geometric tail is, or a residual at the rounding level of the
+    evaluation), every correction is under a third of the distance from its
+    prediction to the nearest other prediction (so no two predictions
+    converged to one root), and every root moved less than half the
+    distance from its previous root to the nearest other previous root (so
+    keeping the order is the unique minimum-total-distance assignment).
+    Otherwise - near break-away points, where real roots must leave the
+    real axis, just past a multiple root, where the velocity is unbounded
+    and a prediction can be confidently wrong, on coarse grids, at degree
+    drops - that step is redone with the companion-matrix roots assigned
+    optimally to the previous roots.  Should the compiled QR iteration itself fail, the whole variant
     is traced again with ``method="eig"``.  Accuracy is that of a
     backward-stable root finder: the deviation from the eigenvalues is at
     rounding level for well-separated roots and grows with the condition of
@@ -496,23 +498,17 @@ def _first_step(N, D, sg, g, roots_fn, st):
 
 
 def _trace_eig(N, D, sg, g, st) -> np.ndarray:
-    """Reference tracing: LAPACK roots at every gain, optimal matching to the prediction."""
+    """Reference tracing: LAPACK roots at every gain, minimum-total-distance matching to the previous roots."""
     V, w = D.shape
     out = np.empty((V, g.size, w - 1), dtype=np.complex128)
-    poles, out[:, 0], vel = _first_step(N, D, sg, g, _roots_eig, st)
-    prev2, k2 = poles, 0.0
-    prev1, k1 = out[:, 0], g[0]
+    _, out[:, 0], _ = _first_step(N, D, sg, g, _roots_eig, st)
     for gi in range(1, g.size):
         k = g[gi]
         st["steps"] += 1
-        pred = _predict(prev2, k2, prev1, k1, vel, k)
         P = _char_poly(N, D, sg, k)
         nz = _lead_zeros(P, N, D, sg, k)
-        new = _match(_safe_pred(pred, prev1), _roots_eig(P, nz))
+        out[:, gi] = _match(out[:, gi - 1], _roots_eig(P, nz))
         st["degree_drop"] += int(np.count_nonzero(nz))
-        vel = _velocity(N, D, sg, k, new)
-        out[:, gi] = new
-        prev2, k2, prev1, k1 = prev1, k1, new, k
     return out
 
 
@@ -566,46 +562,6 @@ def _velocity(N: np.ndarray, D: np.ndarray, sg: float, k: float, z: np.ndarray) 
         _, dp = _horner_d(P, z)
         v = -sg * _horner(N, z) / dp
     return np.where(np.isfinite(v), v, np.nan)
-
-
-def _predict(z0, k0, z1, k1, v1, k) -> np.ndarray:
-    """Quadratic extrapolation through (k0, z0), (k1, z1) with slope v1 at k1.
-
-    Falls back to the linear (tangent) step where the curvature term is not
-    finite, and to the previous root where the velocity is not.
-    """
-    h0 = k1 - k0
-    h = k - k1
-    with np.errstate(all="ignore"):
-        c = (z0 - z1 + v1 * h0) / (h0 * h0)
-        p2 = z1 + h * (v1 + c * h)
-        p1 = z1 + h * v1
-    bad = ~np.isfinite(p2)
-    if bad.any():
-        p2[bad] = np.where(np.isfinite(p1[bad]), p1[bad], z1[bad])
-    return p2
-
-
-def _safe_pred(pred: np.ndarray, prev: np.ndarray) -> np.ndarray:
-    """Limit each predicted step to half the distance from its root to the nearest other root.
-
-    Keeps a wild prediction (a near-multiple root makes ``ds/dk`` huge) from
-    carrying a branch across its neighbour before matching.
-    """
-    n = prev.shape[1]
-    if n < 2:
-        return pred
-    d = np.abs(prev[:, :, None] - prev[:, None, :])
-    d[:, np.arange(n), np.arange(n)] = np.inf
-    d = np.where(np.isfinite(d), d, np.inf)
-    nn = d.min(axis=2)
-    step = pred - prev
-    a = np.abs(step)
-    lim = 0.5 * nn
-    with np.errstate(all="ignore"):
-        scale = np.where((a > lim) & np.isfinite(lim), lim / a, 1.0)
-    out = prev + step * scale
-    return np.where(np.isfinite(out), out, pred)
 
 
 # --------------------------------------------------------------------------- one chunk
