@@ -6,8 +6,8 @@ log-spaced gain grid, three ways, side by side in one run:
 
 * ``eig only``     one batched ``numpy.linalg.eigvals`` call per gain over all
                    variants (companion matrices), no branch matching;
-* ``eig + match``  the same plus optimal matching to a prediction of every
-                   branch (``sweep.locus.trace(method="eig")``): the fair
+* ``eig + match``  the same plus optimal matching of every branch to its
+                   previous root (``sweep.locus.trace(method="eig")``): the fair
                    baseline, since continuous branches are what is needed;
 * ``continuation`` ``sweep.locus.trace`` (predictor, Newton, eigenvalue
                    fall back where in doubt; compiled, one variant at a time);
