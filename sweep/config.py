@@ -122,6 +122,7 @@ _SWEEP_KEYS = ("designs", "samples", "levels", "seed", "chunk_size", "max_varian
 _LOCUS_KEYS = ("points", "keep")
 _RESERVED_NAMES = ("s", "sqrt", "exp", "log", "sin", "cos", "tan", "k")
 _NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+MAX_NAME = 64
 # the locus grid is per variant; beyond this the run only burns memory
 MAX_LOCUS_POINTS = 100_000
 
@@ -161,7 +162,10 @@ class _Reader:
             return math.inf
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise self.fail(field_name, f"expected a number, got {_kind(value)} {_show(value)}")
-        f = float(value)
+        try:
+            f = float(value)
+        except OverflowError:  # a TOML integer beyond floating point
+            raise self.fail(field_name, f"{_show(value)} is too large for floating point; give a smaller number") from None
         if math.isnan(f):
             raise self.fail(field_name, "NaN is not allowed; give a number")
         if math.isinf(f) and not (allow_inf and f > 0):
@@ -201,31 +205,63 @@ def _kind(value: Any) -> str:
     return {"date": "a date", "datetime": "a date-time", "time": "a time"}.get(type(value).__name__, type(value).__name__)
 
 
+# "-20%/+80%" (or "-20/+80%", "+80%/-20%"): the two sides of an asymmetric tolerance in one string
+_SPLIT_TOL = re.compile(r"\s*([+-])\s*([^/%]+?)\s*(%?)\s*/\s*([+-])\s*([^/%]+?)\s*%\s*")
+# a symmetric tolerance may be written with a plus-minus prefix
+_PLUS_MINUS = ("\u00b1", "+/-", "+-")
+
+
 def _tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> tuple[float, float]:
     """(minus, plus) absolute deviations from a `tol` value.
 
-    Accepts "10%", an absolute number, or a two-element list [minus, plus] of
-    either form (e.g. ["20%", "80%"] for -20/+80 %).
+    Accepts "10%" (also "+-10%", "\u00b110 %"), an absolute number, a
+    two-element list [minus, plus] of either form (e.g. ["20%", "80%"] or
+    ["-20%", "+80%"] for -20/+80 %), or the string "-20%/+80%".
     """
     if isinstance(value, list):
         if len(value) != 2:
             raise r.fail(field_name, f"a tolerance list needs two entries [minus, plus], got {len(value)}")
-        minus = _one_tolerance(r, value[0], nominal, f"{field_name}[0]")
-        plus = _one_tolerance(r, value[1], nominal, f"{field_name}[1]")
+        minus = _one_tolerance(r, value[0], nominal, f"{field_name}[0]", side="-")
+        plus = _one_tolerance(r, value[1], nominal, f"{field_name}[1]", side="+")
         return minus, plus
+    if isinstance(value, str):
+        m = _SPLIT_TOL.fullmatch(value)
+        if m and "%" in value:
+            s1, a, pct1, s2, b = m.groups()
+            if s1 == s2:
+                raise r.fail(field_name, f"tolerance {_show(value)} gives two {'minus' if s1 == '-' else 'plus'} sides; "
+                                         "write it as \"-20%/+80%\" or [\"20%\", \"80%\"] (minus first)")
+            sides = {s1: a + "%", s2: b + "%"}
+            return (_one_tolerance(r, sides["-"], nominal, field_name, side="-"),
+                    _one_tolerance(r, sides["+"], nominal, field_name, side="+"))
+        if "/" in value.strip().removeprefix("+/-"):
+            raise r.fail(field_name, f"cannot read {_show(value)} as a tolerance; write an asymmetric one as \"-20%/+80%\" "
+                                     "or as a list [minus, plus] such as [\"20%\", \"80%\"] or [0.1, 0.3]")
     t = _one_tolerance(r, value, nominal, field_name)
     return t, t
 
 
-def _one_tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> float:
+def _one_tolerance(r: _Reader, value: Any, nominal: float, field_name: str, side: str = "") -> float:
+    """One absolute deviation from "10%" or a number; `side` is "-" or "+" for one side of a list."""
     if isinstance(value, str):
-        text = value.strip().lstrip("+-\u00b1").strip()
+        text = value.strip()
+        signs = _PLUS_MINUS if not side else (side,)
+        for sign in signs:
+            if text.startswith(sign):
+                text = text[len(sign):].strip()
+                break
+        if text[:1] in ("+", "-", "\u00b1"):
+            if side:
+                raise r.fail(field_name, f"the {'minus' if side == '-' else 'plus'} side of a tolerance list cannot carry "
+                                         f"the sign '{text[0]}'; write [\"20%\", \"80%\"] for -20/+80 %")
+            raise r.fail(field_name, f"a single sign in {_show(value)} is ambiguous; write \"10%\" for +-10 %, "
+                                     "or [\"10%\", \"0%\"] / [\"0%\", \"10%\"] for a one-sided tolerance")
         if not text.endswith("%"):
             raise r.fail(field_name, f"tolerance string {_show(value)} must end in '%' (e.g. \"10%\"); give an absolute tolerance as a number")
         try:
             pct = float(text[:-1])
         except ValueError:
-            raise r.fail(field_name, f"cannot read {_show(value)} as a percentage; write e.g. \"10%\"") from None
+            raise r.fail(field_name, f"cannot read {_show(value)} as a percentage; write \"10%\", or [\"20%\", \"80%\"] for -20/+80 %") from None
         if not math.isfinite(pct):
             raise r.fail(field_name, f"tolerance {_show(value)} is not a finite percentage")
         if pct < 0:
@@ -237,12 +273,15 @@ def _one_tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> f
         return abs(nominal) * (pct / 100.0)
     t = r.number(value, field_name)
     if t < 0:
-        raise r.fail(field_name, "tolerance must not be negative; give the +- half-width")
+        raise r.fail(field_name, "tolerance must not be negative; give the +- half-width"
+                     + (" (the list [minus, plus] takes two sizes, without signs)" if side else ""))
     return t
 
 
 def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
     where = f"parameters.{name}"
+    if len(name) > MAX_NAME:  # names become netCDF variables and plot labels
+        raise r.fail(f"parameters.{_show(name, 20)}", f"a parameter name of {len(name)} characters is too long (at most {MAX_NAME}); use a short name and put the description in a comment")
     if not _NAME_RE.match(name):
         raise r.fail(where, f"parameter name {_show(name)} must start with a letter and use only letters, digits and _ (ASCII)")
     if name in _RESERVED_NAMES:
@@ -291,6 +330,8 @@ def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
     if not (math.isfinite(low) and math.isfinite(high)):
         raise r.fail(f"{where}.tol", f"the bounds [{low:g}, {high:g}] overflow floating point; give a smaller nominal or tolerance")
     if low == high:
+        if dist == "normal":  # sigma 0 is no distribution; say which was meant
+            raise r.fail(where, "a normal distribution needs a width above zero (tol is 3 sigma); give a tolerance, or write dist = \"fixed\"")
         return Parameter(name, nominal, nominal, nominal, "fixed", units)
     return Parameter(name, nominal, low, high, dist, units)
 
@@ -392,7 +433,7 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
     if "operating_gain" in loop:
         operating_gain = r.number(loop["operating_gain"], "loop.operating_gain")
         if not gain_range[0] < operating_gain < gain_range[1]:
-            raise r.fail("loop.operating_gain", f"{operating_gain:g} lies outside gain_range ({gain_range[0]:g}, {gain_range[1]:g}); move it inside")
+            raise r.fail("loop.operating_gain", f"{operating_gain:g} is not strictly inside gain_range ({gain_range[0]:g}, {gain_range[1]:g}); move it inside or widen the range")
 
     sweep_raw = r.table(data.get("sweep", {}), "sweep")
     r.known_keys(sweep_raw, _SWEEP_KEYS, "sweep")
@@ -454,28 +495,58 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
 
 _TOML_HINTS = (
     ("Cannot overwrite a value", "a key is given twice (or a table and a key share a name); keep one"),
+    ("Duplicate", "a key is given twice; keep one"),
     ("Cannot declare", "a table is declared twice; merge the two [sections]"),
     ("Cannot mutate", "a table is declared twice; merge the two [sections]"),
-    ("Invalid value", "strings need quotes, numbers are written 1.5 or 2e-3, lists [a, b]"),
+    ("Invalid value", "strings (expressions, words, percentages) need quotes; numbers are written 1.5 or 2e-3, "
+                      "infinity inf, booleans true/false, lists [a, b]"),
+    ("Unclosed inline table", "an inline table { ... } stays on one line; strings such as \"10%\" need quotes"),
     ("Unclosed", "close the string, list or table"),
+    ("Unterminated string", "close the string with the quote it opens with"),
+    ("Invalid initial character for a key part", "an inline table { ... } stays on one line, without a trailing comma"),
     ("Invalid statement", "each line is key = value or [section]"),
-    ("Expected '=' after a key", "each line is key = value or [section]"),
+    ("Expected '=' after a key", "each line is key = value or [section] (TOML writes '=', not ':')"),
+    ("Expected newline or end of document", "one key = value per line; expressions need quotes, e.g. transfer = \"1/(s + 1)\""),
 )
+_HEADER = re.compile(r"\s*\[+\s*([A-Za-z0-9_.\-\s\"']+?)\s*\]+\s*(#.*)?$")
+_KEY = re.compile(r"\s*([A-Za-z0-9_\-]+(?:\s*\.\s*[A-Za-z0-9_\-]+)*)\s*[=:]")
+
+
+def _field_at(lines: list[str], number: int) -> str:
+    """The dotted key written on line `number` (1-based), best effort, or ''."""
+    table = ""
+    for line in lines[: number - 1]:
+        m = _HEADER.match(line)
+        if m:
+            table = re.sub(r"\s+", "", m.group(1)).replace('"', "").replace("'", "")
+    line = lines[number - 1] if 0 < number <= len(lines) else ""
+    m = _HEADER.match(line)
+    if m:
+        return ""
+    m = _KEY.match(line)
+    if not m:
+        return ""
+    key = re.sub(r"\s+", "", m.group(1))
+    return f"{table}.{key}" if table else key
 
 
 def _toml_error(r: _Reader, text: str, exc: Exception) -> InputError:
-    """One line for a TOML syntax error: the line number, the line itself and a hint."""
+    """One line for a TOML syntax error: the line number and key, the line itself and a hint."""
     message = str(exc)
     m = re.search(r"\(at line (\d+), column (\d+)\)", message)
     reason = re.sub(r"\s*\((at line \d+, column \d+|at end of document)\)", "", message).strip()
     hint = next((h for key, h in _TOML_HINTS if reason.startswith(key)), "check the syntax of that line")
     if m is None:
+        if hint.endswith("that line"):
+            hint = "check the last lines of the file"
         return r.fail(None, f"not valid TOML ({reason}, at the end of the file); {hint}")
     number = int(m.group(1))
     lines = text.splitlines()
     line = lines[number - 1].strip() if 0 < number <= len(lines) else ""
     shown = f": {_show(line, 60)}" if line else ""
-    return r.fail(f"line {number}", f"not valid TOML ({reason}, column {m.group(2)}{shown}); {hint}")
+    key = _field_at(lines, number)
+    where = f"line {number} ({key})" if key else f"line {number}"
+    return r.fail(where, f"not valid TOML ({reason}, column {m.group(2)}{shown}); {hint}")
 
 
 def _keep(r: _Reader, text: str) -> tuple[str, int]:

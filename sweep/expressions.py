@@ -305,8 +305,13 @@ class _Parser:
             if t.text in FUNCTIONS:
                 return self.call(t)
             if self._is("("):
+                # 's(s + 1)' or 'K(s + 1)' is a product written without '*'
+                times = f"to multiply, write '{_short(t.text)}*(...)'"
+                if t.text == "s":
+                    raise _err(f"'s(' at position {t.pos + 1}: s is not a function; {times}")
                 raise _err(
-                    f"unknown function '{_short(t.text)}' at position {t.pos + 1}; allowed functions: {', '.join(FUNCTIONS)}"
+                    f"unknown function '{_short(t.text)}' at position {t.pos + 1}; allowed functions: "
+                    f"{', '.join(FUNCTIONS)}; {times}"
                 )
             if t.text == "s":
                 return S()
@@ -469,8 +474,10 @@ def check(node: Node, known: Any, *, allow_s: bool) -> None:
 def _check_s(node: Node) -> None:
     if isinstance(node, Call):
         if has_s(node.arg):
+            # a dead time exp(-T*s) is not rational: point to the usual rational stand-in
+            delay = "; for a dead time use a Pade approximation such as (1 - T*s/2)/(1 + T*s/2)" if node.func == "exp" else ""
             raise _err(
-                f"'s' inside {node.func}(...) is not allowed: functions apply to parameter expressions only"
+                f"'s' inside {node.func}(...) is not allowed: functions apply to parameter expressions only{delay}"
             )
         return
     if isinstance(node, Power):

@@ -24,6 +24,8 @@ from .warnings import CancellationWarning, UnusedParameterWarning
 # How hard `validate` tries to prove that a leading coefficient keeps its sign.
 _MAX_BOXES = 4096
 _MAX_ROUNDS = 14
+# Poles and zeros beyond this size are typing slips (1e-200 for 1e-2): squaring them overflows.
+MAX_ROOT = 1e100
 # Beyond this many poles, coefficients in powers of s carry no useful digits.
 MAX_ORDER = 50
 
@@ -38,6 +40,12 @@ class _Part:
     exprs: tuple[tuple[str, Any], ...] = ()  # (field, tree) of every expression of the factor
     num_fields: tuple[str, ...] | None = None  # per-coefficient fields of num/den lists
     den_fields: tuple[str, ...] | None = None
+
+    def side_field(self, which: str) -> str:
+        """The field to name for a fault of the whole numerator or denominator."""
+        if self.num_fields is None:
+            return self.field
+        return "plant.num" if which == "numerator" else "plant.den"
 
 
 def _parts(config: Config) -> tuple[_Part, ...]:
@@ -263,9 +271,16 @@ def validate(config: Config) -> None:
         if not (np.all(np.isfinite(num)) and np.all(np.isfinite(den))):
             raise fail(part.field, f"the {part.label} evaluates to an infinite or undefined coefficient at the nominal values (a number too large for floating point?); check the expression")
         if not np.any(num != 0):
-            raise fail(part.field, "the numerator is zero at the nominal values, so the loop carries no signal; check the expression")
+            raise fail(part.side_field("numerator"), "the numerator is zero at the nominal values, so the loop carries no signal; check the expression")
         if not np.any(den != 0):
-            raise fail(part.field, "the denominator is zero at the nominal values; check the expression")
+            raise fail(part.side_field("denominator"), "the denominator is zero at the nominal values; check the expression")
+        for which, coefs in (("numerator", num[0]), ("denominator", den[0])):
+            size = _largest_root(coefs)
+            if size > MAX_ROOT:
+                kind = "zero" if which == "numerator" else "pole"
+                shown = f"of size {size:.3g}" if np.isfinite(size) else "too large for floating point"
+                raise fail(part.side_field(which), f"the {part.label} has a {kind} {shown} at the nominal values; beyond "
+                           f"{MAX_ROOT:.0e} rad/s the arithmetic overflows, so check the exponents and units of the coefficients")
 
     degrees = part_degrees(config)
     m = sum(d[0] for d in degrees)
@@ -286,6 +301,26 @@ def validate(config: Config) -> None:
 
     _warn_cancellation(config)
     _warn_unused(config)
+
+
+def _largest_root(coefs: np.ndarray) -> float:
+    """Size of the largest root of a polynomial (highest power first), for the `MAX_ROOT` test.
+
+    Cauchy's bound ``1 + max |c_i / c_0|`` when that is below `MAX_ROOT`,
+    else the largest computed root magnitude; inf when the ratios overflow.
+    """
+    nz = np.flatnonzero(coefs)
+    if nz.size == 0 or nz[0] == coefs.shape[0] - 1:
+        return 0.0
+    c = coefs[nz[0]:]
+    with np.errstate(all="ignore"):
+        ratios = c[1:] / c[0]
+    if not np.all(np.isfinite(ratios)):
+        return np.inf
+    bound = 1.0 + float(np.max(np.abs(ratios)))
+    if bound <= MAX_ROOT:
+        return bound
+    return float(np.max(np.abs(np.roots(c))))
 
 
 def _short(text: str, limit: int = 60) -> str:

@@ -131,7 +131,7 @@ BAD = [
     ("zero_plant", GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'transfer = "0/(s + a)"'), "plant.transfer"),
     ("pure_gain", GOOD.replace('transfer = "1/(s*(s + a)*(b*s + 1))"', 'transfer = "a*b"'), "plant"),
     # found in a review as a new user would write them (a = 2 +-10 %, b in [2.5, 3.5])
-    ("duplicate_key", GOOD.replace("[plant]", "a = 3\n[plant]"), "line 6: not valid TOML (Cannot overwrite a value"),
+    ("duplicate_key", GOOD.replace("[plant]", "a = 3\n[plant]"), "line 6 (parameters.a): not valid TOML (Cannot overwrite a value"),
     ("duplicate_table", GOOD + '[plant]\ntransfer = "1/s"\n', "a table is declared twice"),
     ("divisor_zero_in_box", GOOD.replace("(s + a)", "(s + 1/(b - 2.8))"), "'b - 2.8' (divisor) must stay away from 0"),
     ("divisor_zero_at_box_edge", GOOD.replace("(s + a)", "(s + 1/(b - 2.5))"), "it is 0 at b=2.5"),
