@@ -32,18 +32,20 @@ def build_parser() -> argparse.ArgumentParser:
             "critical gains, stable gain intervals, root loci and certified worst cases "
             "over the whole tolerance box."
         ),
+        epilog="Exit status: 0 done, 2 bad input (one line naming the file, the field and the fix), "
+               "1 anything else. 'python -m sweep' is the same program; 'sweep COMMAND --help' describes each command.",
     )
     parser.add_argument("--version", action="version", version=f"sweep {__version__}")
     parser.add_argument("--debug", action="store_true", help="show a full traceback on errors")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
     p = sub.add_parser("check", help="validate a config and analyse the nominal loop",
-                       description="Validate CONFIG, print the parameter table, the nominal open loop and its stability analysis, and estimate the run time.")
+                       description="Validate CONFIG, print the parameter table, the nominal open loop and its stability analysis, and estimate the run time. Nothing is written.")
     p.add_argument("config", metavar="CONFIG", help="TOML config file")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
 
     p = sub.add_parser("run", help="run the sweep and store the results (resumable)",
-                       description="Generate the variants of CONFIG, analyse each one in parallel chunks and store the dataset as netCDF. Finished chunks survive a crash; rerun (or --resume) to finish.")
+                       description="Generate the variants of CONFIG, analyse each one in parallel chunks and store the dataset as netCDF. Finished chunks are kept in OUT.parts/ and survive a crash; rerun (or --resume) to finish. A log goes to OUT.log.")
     p.add_argument("config", metavar="CONFIG", help="TOML config file")
     p.add_argument("-o", "--out", metavar="OUT", help="output .nc file (default results/<config stem>.nc)")
     p.add_argument("-j", "--jobs", type=int, metavar="N", help="parallel processes (default: all cores; 1 runs in-process)")
@@ -56,8 +58,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("result", metavar="RESULT", help="result .nc file written by 'sweep run'")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
 
-    p = sub.add_parser("plot", help="draw loci, limits, envelopes and distributions",
-                       description="Draw one view of a result file. The format follows the file extension (.png, .svg, .pdf).")
+    p = sub.add_parser("plot", help="draw loci, critical-gain limits, the envelope, distributions or a parameter plane",
+                       description="Draw one view of a result file. The format follows the file extension (.png, .svg, .pdf).",
+                       epilog="Views: locus - root-locus branches of the kept variants, nominal and worst case bold; "
+                              "limits - critical gain against each uncertain parameter; "
+                              "envelope - largest real part of the closed-loop roots against gain, min..max over all variants; "
+                              "crossings - histograms of the critical gain and the crossing frequency; "
+                              "plane - smallest critical gain on a grid of two parameters (--params A B, needs the grid design).")
     p.add_argument("result", metavar="RESULT", help="result .nc file written by 'sweep run'")
     p.add_argument("--what", required=True, choices=["locus", "limits", "envelope", "crossings", "plane"],
                    help="which view to draw")
@@ -150,7 +157,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
     from . import runner
 
     if args.jobs is not None and args.jobs < 1:
-        raise InputError(f"-j must be at least 1, got {args.jobs}", field="-j")
+        raise InputError(f"must be at least 1, got {args.jobs}", field="-j")
     try:
         path = runner.run(config, out=args.out, jobs=args.jobs, resume=args.resume,
                           scheduler=args.scheduler, quiet=args.quiet)
@@ -218,9 +225,9 @@ def _cmd_certify(args: argparse.Namespace) -> int:
 
     config = load_config(args.config)
     if not (0 < args.rtol < 1):
-        raise InputError(f"--rtol must lie between 0 and 1, got {args.rtol:g}", field="--rtol")
+        raise InputError(f"must lie between 0 and 1 (0.01 stops at a 1 % gap), got {args.rtol:g}", field="--rtol")
     if not (args.max_seconds > 0):
-        raise InputError(f"--max-seconds must be a positive number of seconds, got {args.max_seconds:g}",
+        raise InputError(f"must be a positive number of seconds, got {args.max_seconds:g}",
                          field="--max-seconds")
     bar = None
     progress = None

@@ -160,7 +160,10 @@ def format_check(config: Config, summary: dict[str, Any]) -> str:
     intervals = summary.get("stable_intervals", [])
     out.append("  stable for k in " + (", ".join(f"({_fmt(a)}, {_fmt(b)})" for a, b in intervals) if intervals else "no interval of the gain range"))
     out.append(f"  reference gain      {_fmt(summary.get('reference_gain'))}")
-    out.append(f"  critical gain       {_fmt(summary.get('critical_gain'))}   (lower end {_fmt(summary.get('critical_gain_low'))})")
+    if summary.get("stable_at_reference") is False:  # NaN critical gain: say why rather than print '-'
+        out.append("  critical gain       -   (the nominal loop is unstable at the reference gain)")
+    else:
+        out.append(f"  critical gain       {_fmt(summary.get('critical_gain'))}   (lower end {_fmt(summary.get('critical_gain_low'))})")
     out.append(f"  crossing frequency  {_fmt(summary.get('crossing_frequency'))} rad/s")
     if summary.get("routh_agrees") is False:
         out.append("  WARNING: the Routh count disagrees with the interval classification; treat these figures with care")
