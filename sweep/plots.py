@@ -885,6 +885,7 @@ def crossings_figure(ds: xr.Dataset, *, dpi: float | None = None):
     """
     _need(ds, ("critical_gain", "crossing_frequency"), "crossings", "rerun 'sweep run'")
     plt = _plt()
+    from matplotlib.ticker import MaxNLocator
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
@@ -956,6 +957,7 @@ def crossings_figure(ds: xr.Dataset, *, dpi: float | None = None):
                     ax.axvline(val, color=colour, lw=lw, ls=ls, zorder=4)
             ax.set_xlabel(label + (" (log scale)" if log else ""))
             ax.set_ylabel("variants" + (f" ({', '.join(qb['designs'])})" if sampled_basis else ""))
+            ax.yaxis.set_major_locator(MaxNLocator(integer=True))  # counts: no 0.2 of a variant
         handles = []
         if w and w["critical_gain"] is not None and math.isfinite(w["critical_gain"]):
             handles.append(Line2D([], [], color=VERMILLION, lw=2.0,

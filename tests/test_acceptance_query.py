@@ -310,3 +310,12 @@ def test_query_text_shows_an_undefined_certificate_as_none(runs):
     line = next(x for x in text.splitlines() if "certified worst case" in x)
     assert "none (branch-and-bound: some variant is unstable at the reference gain)" in line
     assert "[-" not in line
+
+
+def test_crossings_count_axis_has_whole_variants():
+    ds = make_dataset(designs=("nominal",), points=20)  # one variant: one bar of height 1
+    fig = figure(ds, "crossings")
+    fig.savefig(io.BytesIO(), format="png", dpi=50)
+    for ax in fig.axes:
+        ticks = [t for t in ax.get_yticks() if ax.get_ylim()[0] <= t <= ax.get_ylim()[1]]
+        assert ticks and all(float(t).is_integer() for t in ticks), ticks
