@@ -105,6 +105,10 @@ INTERVAL_FAMILIES = {
     "recirculation4": ({"a2": ("27/5", "33/5"), "a1": ("99/10", "121/10"), "a0": ("51/10", "69/10"),
                         "b0": ("9/10", "11/10")},
                        ["b0"], ["1", "a2", "a1", "a0"], 'feedback = "positive"', -1, 0),
+    # a right-half-plane zero: a negative numerator coefficient
+    "level5": ({"b1": ("4/25", "6/25"), "b0": ("9/10", "11/10"), "a2": ("18/5", "22/5"),
+                "a1": ("9/2", "11/2"), "a0": ("9/5", "11/5")},
+               ["-b1", "b0"], ["1", "a2", "a1", "a0"], "", 1, 0),
     # a large zero term: the family never loses stability (inf)
     "tacho4": ({"b1": ("2/5", "3/5"), "b0": ("9/10", "11/10"), "a2": ("18/5", "22/5"),
                 "a1": ("9/2", "11/2")},
@@ -131,8 +135,16 @@ def test_interval_families_against_exact_kharitonov(name):
     assert res["method"] == "kharitonov" and res["exact"] and res["status"] == "exact"
 
     def ends(row):
-        lo = [sp.Rational(params[c][0]) if c in params else sp.Rational(c) for c in row]
-        hi = [sp.Rational(params[c][1]) if c in params else sp.Rational(c) for c in row]
+        lo, hi = [], []
+        for c in row:
+            if c in params:
+                a, b = sp.Rational(params[c][0]), sp.Rational(params[c][1])
+            elif c.startswith("-") and c[1:] in params:
+                a, b = -sp.Rational(params[c[1:]][1]), -sp.Rational(params[c[1:]][0])
+            else:
+                a = b = sp.Rational(c)
+            lo.append(a)
+            hi.append(b)
         return lo, hi
     (nl, nh), (dl, dh) = ends(num), ends(den)
     if "controller" in loop_lines:  # a constant controller scales N
