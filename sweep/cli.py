@@ -237,8 +237,9 @@ def _cmd_certify(args: argparse.Namespace) -> int:
         bar = tqdm(desc="boxes", unit="box", file=sys.stderr, leave=False)
 
         def progress(boxes: int, lower: float, upper: float) -> None:
-            bar.n = boxes
-            bar.set_postfix_str(f"lower {lower:.6g}  upper {upper:.6g}", refresh=True)
+            # update() redraws at most every mininterval (a forced redraw per step filled logs)
+            bar.set_postfix_str(f"lower {lower:.6g}  upper {upper:.6g}", refresh=False)
+            bar.update(boxes - bar.n)
 
     try:
         result = certify_mod.certify(config, rtol=args.rtol, max_seconds=args.max_seconds, progress=progress)
