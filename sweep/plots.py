@@ -840,11 +840,9 @@ def envelope_figure(ds: xr.Dataset, *, dpi: float | None = None):
                     break
                 ticks += [t] if t <= y1 else []
                 ticks += [-t] if -t >= y0 else []
-            from matplotlib.ticker import EngFormatter
-
-            eng = EngFormatter(sep="")
             ax.set_yticks(sorted(ticks))
-            ax.set_yticklabels([eng(t) if abs(t) >= 1e4 else f"{t:g}" for t in sorted(ticks)])
+            # one formatter for every tick, so -10 and -10k carry the same minus sign
+            ax.set_yticklabels([_tick(t) for t in sorted(ticks)])
             ax.text(1.0, -0.09, f"y: symmetric log scale, linear within ±{linthresh:.2g}",
                     transform=ax.transAxes, ha="right", va="top", fontsize=7, color="#595959")
         else:

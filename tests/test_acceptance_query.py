@@ -319,3 +319,16 @@ def test_crossings_count_axis_has_whole_variants():
     for ax in fig.axes:
         ticks = [t for t in ax.get_yticks() if ax.get_ylim()[0] <= t <= ax.get_ylim()[1]]
         assert ticks and all(float(t).is_integer() for t in ticks), ticks
+
+
+def test_envelope_symlog_ticks_share_one_minus_sign(edge):
+    # spectral abscissas from -1 down to -20k (a first-order loop at high gain): the labels
+    # -10 and -10k must carry the same minus sign
+    ds = edge["all_inf"].copy()
+    g = ds["gain"].values
+    absc = -np.geomspace(1.0, 2e4, g.size)
+    for name, f in (("abscissa_min", 1.2), ("abscissa_max", 0.8), ("abscissa_mean", 1.0)):
+        ds[name] = ("gain", absc * f, ds[name].attrs)
+    labels = [t.get_text() for t in figure(ds, "envelope").axes[0].get_yticklabels()]
+    assert "-10k" in labels and "-10" in labels, labels
+    assert not any("\u2212" in lab for lab in labels), labels
