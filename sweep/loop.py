@@ -578,9 +578,9 @@ _COMMON_RTOL = 1e-10
 def _residual(p: np.ndarray, z: np.ndarray) -> np.ndarray:
     """Relative backward error |p(z)| / sum |p_i| |z|^i of candidate roots `z`."""
     n = p.shape[0] - 1
-    powers = np.abs(z)[:, None] ** np.arange(n, -1, -1)[None, :]
-    scale = powers @ np.abs(p)
-    with np.errstate(all="ignore"):
+    with np.errstate(all="ignore"):  # huge candidate roots overflow to inf: NaN, never a hit
+        powers = np.abs(z)[:, None] ** np.arange(n, -1, -1)[None, :]
+        scale = powers @ np.abs(p)
         return np.abs(np.polyval(p, z)) / np.where(scale > 0, scale, 1.0)
 
 
