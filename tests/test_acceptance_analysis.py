@@ -362,3 +362,13 @@ def test_huge_coefficient_ratio_has_no_overflow_warning():
         warnings.simplefilter("error")
         a = analyze([1e308], [1e-308, 1])
     assert a.asymptotes["angles_deg"] == [180.0]
+
+
+def test_every_new_loop_gives_strict_json():
+    # DESIGN section 6: inf as "inf", NaN as null, complex as [re, im]; strict JSON
+    import json
+
+    for _, num, den, fb, gr, k0 in LOOPS:
+        d = analyze(num, den, feedback=fb, gain_range=gr, operating_gain=k0).to_dict()
+        text = json.dumps(d, allow_nan=False)
+        assert json.loads(text)["reference_gain"] == (gr[0] if k0 is None else k0)

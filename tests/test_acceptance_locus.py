@@ -289,3 +289,19 @@ def test_continuous_branches_match_the_scipy_assignment_exactly_on_random_loops(
                 i, j = linear_sum_assignment(c)
                 best = c[i, j].sum()
                 assert np.trace(c) <= best + 1e-9 * (best + np.abs(b).max()), (D, N, sigma, gi)
+
+
+def test_batch_with_multiple_roots_on_the_grid_equals_one_at_a_time():
+    # the crane loop (double roots at k = 64 and k = 100 on the grid, fall-back steps) in
+    # a stack with perturbed copies: each row equals that variant traced alone, bit for bit
+    rng = np.random.default_rng(4)
+    base = poly([1, 0], [1, 4], [1, 4, 20])
+    D = np.stack([base] + [base * np.r_[1.0, rng.uniform(0.9, 1.1, 4)] for _ in range(6)])
+    N = np.ones((7, 1))
+    g = _grid(1e-2, 1e4, 120, 64.0, 100.0)
+    st = {}
+    full = trace(N, D, sigma=1, gains=g, stats=st)
+    assert st["fallback_variant_steps"] > 0
+    for i in range(7):
+        np.testing.assert_array_equal(full[i], trace(N[i:i + 1], D[i:i + 1], sigma=1, gains=g)[0])
+    assert_continuous(full, rtol=1e-7)
