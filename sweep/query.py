@@ -148,6 +148,31 @@ def operating_gain(ds: xr.Dataset) -> float | None:
     return None
 
 
+def gain_range(ds: xr.Dataset) -> tuple[float, float] | None:
+    """The ``gain_range`` of the sweep from the stored config text, or None when unknown.
+
+    Parameters
+    ----------
+    ds
+        A result dataset.
+
+    Returns
+    -------
+    tuple of float or None
+        ``(low, high)``; ``high`` may be ``inf``.
+    """
+    text = ds.attrs.get("config")
+    if not text:
+        return None
+    try:
+        from .config import parse_config
+
+        cfg = parse_config(str(text), source="<result file>")
+    except Exception:  # noqa: BLE001 - the range is only used to word the report
+        return None
+    return float(cfg.gain_range[0]), float(cfg.gain_range[1])
+
+
 def ranked_quantile(values: np.ndarray, q: float, *, low_missing: int = 0) -> float:
     """The ``q`` quantile with numpy's "linear" rule, safe with ``inf`` and unknowns.
 
@@ -455,7 +480,8 @@ def summarize(ds: xr.Dataset, certificate: dict | None = None) -> dict[str, Any]
         Plain Python values only (``float('inf')`` and ``float('nan')``
         included; `sweep.jsonutil` writes them as ``"inf"`` and ``null``):
 
-        - ``n_variants``, ``reference_gain``, ``feedback``;
+        - ``n_variants``, ``reference_gain``, ``feedback``, ``gain_range``
+          (``[low, high]`` from the stored config, or None);
         - ``worst`` {``variant``, ``design``, ``critical_gain``,
           ``critical_gain_low``, ``crossing_frequency``, ``parameters``,
           ``basis``, ``max_real_part``, ``closed_loop_poles``}: the smallest
@@ -512,8 +538,10 @@ def summarize(ds: xr.Dataset, certificate: dict | None = None) -> dict[str, Any]
         unstable = np.isnan(crit)
     n_unstable = int(unstable.sum())
 
+    gr = gain_range(ds)
     out: dict[str, Any] = {"n_variants": int(V), "reference_gain": float(k_ref),
-                           "feedback": str(ds.attrs.get("feedback", "negative"))}
+                           "feedback": str(ds.attrs.get("feedback", "negative")),
+                           "gain_range": None if gr is None else list(gr)}
     if V == 0:
         out.update(worst=None, nominal=None, robust_gain_interval=None,
                    robust_gain_interval_variants=None, robust_gain_interval_note="no variants",
@@ -736,7 +764,10 @@ def format_summary(summary: dict, ds: xr.Dataset) -> str:
         else:
             wrows.append(("critical gain", _num(w["critical_gain"])))
             if w.get("critical_gain_low") not in (None, 0.0) and _num(w.get("critical_gain_low")) != "-":
-                wrows.append(("stable from gain", _num(w["critical_gain_low"])))
+                gr = summary.get("gain_range")
+                at_start = gr is not None and w["critical_gain_low"] == gr[0]
+                wrows.append(("stable from gain", _num(w["critical_gain_low"])
+                              + ("  (the start of the gain range)" if at_start else "")))
             wrows.append(("crossing frequency", _freq(w["crossing_frequency"])))
             if w.get("basis", "").startswith("smallest critical gain among"):
                 wrows.append(("chosen by", w["basis"]))

@@ -332,3 +332,13 @@ def test_envelope_symlog_ticks_share_one_minus_sign(edge):
     labels = [t.get_text() for t in figure(ds, "envelope").axes[0].get_yticklabels()]
     assert "-10k" in labels and "-10" in labels, labels
     assert not any("\u2212" in lab for lab in labels), labels
+
+
+def test_worst_case_stable_from_the_range_start_says_so(runs):
+    q = summarize(runs["press"])  # gain_range = [5, 400], no operating gain
+    assert q["gain_range"] == [5.0, 400.0] and q["reference_gain"] == 5.0
+    text = format_summary(q, runs["press"])
+    assert any("stable from gain" in line and line.rstrip().endswith("5  (the start of the gain range)")
+               for line in text.splitlines()), text
+    q = summarize(runs["hoist"])  # conditionally stable: the interval starts above the range start
+    assert q["gain_range"] == [0.0, math.inf]
