@@ -123,6 +123,8 @@ _LOCUS_KEYS = ("points", "keep")
 _RESERVED_NAMES = ("s", "sqrt", "exp", "log", "sin", "cos", "tan", "k")
 _NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 MAX_NAME = 64
+# a config is a page of text; this only stops a wrong path (a device, a data file) from filling memory
+MAX_FILE_BYTES = 10_000_000
 # the locus grid is per variant; beyond this the run only burns memory
 MAX_LOCUS_POINTS = 100_000
 
@@ -183,6 +185,14 @@ class _Reader:
         if not isinstance(value, str):
             raise self.fail(field_name, f"expected a string, got {_kind(value)} {_show(value)}")
         return value
+
+    def label(self, value: Any, field_name: str) -> str:
+        """A string shown on one line in tables, plots and the terminal: no line breaks or control characters."""
+        text = self.string(value, field_name)
+        bad = next((c for c in text if not c.isprintable()), None)
+        if bad is not None:
+            raise self.fail(field_name, f"contains the control character {bad!r}; keep it on one line of plain text")
+        return text
 
 
 def _show(value: Any, limit: int = 40) -> str:
@@ -298,7 +308,7 @@ def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
     if "nominal" not in spec:
         raise r.fail(where, "missing 'nominal'; write nominal = <value>")
     nominal = r.number(spec["nominal"], f"{where}.nominal")
-    units = r.string(spec.get("units", ""), f"{where}.units")
+    units = r.label(spec.get("units", ""), f"{where}.units")
     dist = r.string(spec.get("dist", "uniform"), f"{where}.dist")
     if dist not in DISTRIBUTIONS:
         raise r.fail(f"{where}.dist", f"unknown distribution '{dist}'; {_suggest(dist, DISTRIBUTIONS)}")
@@ -386,7 +396,7 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
         raise _toml_error(r, text, exc) from None
     r.known_keys(data, _TOP_KEYS, "")
 
-    title = r.string(data.get("title", ""), "title") if "title" in data else ""
+    title = r.label(data.get("title", ""), "title") if "title" in data else ""
 
     params_raw = r.table(data.get("parameters", {}), "parameters")
     parameters = tuple(_parameter(r, name, spec) for name, spec in params_raw.items())
@@ -579,7 +589,9 @@ def load_config(path: Any) -> Config:
     source = str(path)
     try:
         with open(path, "rb") as fh:
-            raw = fh.read()
+            raw = fh.read(MAX_FILE_BYTES + 1)
+        if len(raw) > MAX_FILE_BYTES:
+            raise InputError(f"is larger than {MAX_FILE_BYTES // 1_000_000} MB, far beyond any config; give the .toml file", file=source)
     except IsADirectoryError:
         raise InputError("is a folder, not a config file; give the path of a .toml file", file=source) from None
     except OSError as exc:

@@ -57,6 +57,9 @@ BAD = [
     ("parameter_string", _swap('a = { nominal = 2.0, tol = "10%" }', 'a = "2.0"'), "parameters.a: expected a number or a table"),
     ("parameter_empty_table", _swap('a = { nominal = 2.0, tol = "10%" }', "a = {}"), "parameters.a: missing 'nominal'"),
     ("title_table", _swap('title = "Kiln damper loop"', "[title]\nx = 1"), "title: expected a string"),
+    ("title_two_lines", _swap('title = "Kiln damper loop"', 'title = """Kiln\ndamper loop"""'), "title: contains the control character '\\n'"),
+    ("title_terminal_escape", _swap('title = "Kiln damper loop"', 'title = "\\u001b[2JKiln"'), "title: contains the control character '\\x1b'"),
+    ("units_with_newline", _swap('units = "s"', 'units = "s\\n"'), "parameters.b.units: contains the control character"),
     ("plant_string", 'plant = "1/s"\n', "plant: expected a table"),
     ("loop_array_of_tables", BASE + '[[loop]]\nfeedback = "negative"\n', "loop: expected a table"),
     ("transfer_boolean", _swap(T, "transfer = true"), "plant.transfer: expected an expression or a number"),
@@ -231,6 +234,7 @@ FILES = [
     ("latin1", BASE.replace("Kiln", "Four \xe0 chaux").encode("latin-1"), "not a UTF-8 text file"),
     ("utf16", BASE.encode("utf-16"), "not a UTF-8 text file"),
     ("nul_bytes", BASE.encode() + b"\x00\x00", "not valid TOML"),
+    ("eleven_megabytes", BASE.encode() + b"#" * 11_000_000, "is larger than 10 MB"),
 ]
 
 
