@@ -341,6 +341,18 @@ def spearman(x: np.ndarray, y: np.ndarray) -> float:
     return 0.0 if den == 0 else float(rx @ ry) / den
 
 
+def _one_value(crit: np.ndarray, unstable: np.ndarray, which: str) -> str:
+    """Why the critical gain cannot be ranked over ``which`` (it takes one value there)."""
+    if unstable.all():
+        return f"every one of the {which} is unstable at the reference gain"
+    if unstable.any():
+        return (f"each one of the {which} is unstable at the reference gain or never loses "
+                "stability")
+    if np.isposinf(crit).all():
+        return f"every one of the {which} keeps stability over the whole gain range (inf)"
+    return f"the critical gain is the same for every one of the {which}"
+
+
 def _sensitivity(ds: xr.Dataset, crit: np.ndarray, unstable: np.ndarray, k_ref: float,
                  nominal_crit: float | None) -> tuple[list[dict], dict]:
     """Parameter influence on the critical gain; see `summarize`."""
@@ -357,9 +369,8 @@ def _sensitivity(ds: xr.Dataset, crit: np.ndarray, unstable: np.ndarray, k_ref: 
         keep = ~np.isnan(y)
         if np.unique(y[keep]).size < 2:
             return [], {"measure": None, "designs": used,
-                        "note": "the critical gain takes one value over the sampled variants "
-                                "(every one unstable at the reference gain, or all infinite): "
-                                "nothing to rank"}
+                        "note": "nothing to rank: " + _one_value(crit[sampled], unstable[sampled],
+                                                                 "sampled variants")}
         out = []
         for n in names:
             x = np.asarray(ds[n].values, float)[sampled][keep]
@@ -382,9 +393,8 @@ def _sensitivity(ds: xr.Dataset, crit: np.ndarray, unstable: np.ndarray, k_ref: 
         ok = ~np.isnan(y)
         if np.unique(y[ok]).size < 2:
             return [], {"measure": None, "designs": used,
-                        "note": "the critical gain takes one value over the corners/grid variants "
-                                "(every one unstable at the reference gain, or all infinite): "
-                                "nothing to rank"}
+                        "note": "nothing to rank: " + _one_value(crit[levelled], unstable[levelled],
+                                                                 "corners/grid variants")}
         out = []
         for n in names:
             x = np.asarray(ds[n].values, float)[levelled]

@@ -342,3 +342,10 @@ def test_worst_case_stable_from_the_range_start_says_so(runs):
                for line in text.splitlines()), text
     q = summarize(runs["hoist"])  # conditionally stable: the interval starts above the range start
     assert q["gain_range"] == [0.0, math.inf]
+
+
+def test_sensitivity_says_why_nothing_is_ranked(edge):
+    inf = summarize(edge["all_inf"])["sensitivity_method"]["note"]
+    assert "keeps stability over the whole gain range" in inf and "unstable" not in inf
+    uns = summarize(edge["all_unstable"])["sensitivity_method"]["note"]
+    assert "is unstable at the reference gain" in uns and "inf" not in uns
