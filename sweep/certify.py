@@ -1208,9 +1208,12 @@ def certify(
             i = int(np.argmin(crit))
             full = _full_critical_gain(config, values, corners[i])
             if full == bound or abs(full - bound) <= 1e-9 * abs(bound):
+                # the two routines may differ in the last digits: report the smaller, so that the
+                # sweep's own value at that corner is never below the bound
+                value = min(bound, full)
                 if progress is not None:
-                    progress(1, float(bound), float(bound))
-                return result("kharitonov", bound, bound, 1, corners[i], "exact",
+                    progress(1, float(value), float(value))
+                return result("kharitonov", value, value, 1, corners[i], "exact",
                               "interval family: exact by Kharitonov's theorem")
             # the full analysis disagrees at the worst corner: do not claim exactness
 
@@ -1230,6 +1233,9 @@ def certify(
     if status in _PROVEN and res.worst is not None and not math.isnan(upper):
         # the upper bound is a value attained by a point: confirm it with the full analysis
         full = _full_critical_gain(config, values, res.worst)
+        if not math.isnan(full):
+            # an attained value: the bound may not exceed it, whatever the rounding of the pencils
+            lower = min(lower, full)
         if math.isnan(full):
             msg += ("; note: the full analysis does not confirm the worst point as stable at the reference "
                     "gain (a marginal case); its value is that of the fast routine")
