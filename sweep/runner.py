@@ -938,6 +938,11 @@ def run(
                              ) from None
         except BaseException as err:
             log(f"failed: {type(err).__name__}: {' '.join(str(err).split())}; {_parts_kept(parts)} chunks kept")
+            if type(err).__name__ == "KilledWorker" and type(err).__module__.startswith("distributed"):
+                # Dask gave up on a chunk whose workers all died (no error of their own to show)
+                raise SweepError(f"Dask workers died while computing a chunk ({' '.join(str(err).split()[:12])}"
+                                 f" ...); {_parts_kept(parts)} chunks kept; resume with: {_resume_command(config, out)}"
+                                 ) from None
             raise
 
 

@@ -152,6 +152,26 @@ def test_worker_killed_from_outside(tmp_path, reference, monkeypatch):
     xr.testing.assert_identical(load(out), reference)
 
 
+def test_dask_workers_dying_stop_the_run_with_the_resume_command(tmp_path, monkeypatch):
+    """Dask gives up on a chunk whose workers all died (KilledWorker): one line, the resume command."""
+    killed = type("KilledWorker", (Exception,), {"__module__": "distributed.scheduler"})
+
+    def dying(tasks, make, scheduler, write, done):
+        i = tasks.popleft()
+        fn, config, _, variants, gains, kept = make(i)[:6]
+        write(i, fn(config, variants, gains, kept))  # one chunk arrives, then the workers die
+        raise killed("Attempted to run task '_compute-1' on 4 different workers,\nbut all those workers died")
+
+    monkeypatch.setattr(runner, "_run_dask", dying)
+    cfg = load_config(write_config(tmp_path))
+    out = tmp_path / "d.nc"
+    with pytest.raises(SweepError, match="Dask workers died") as info:
+        runner.run(cfg, out=out, scheduler="tcp://127.0.0.1:8786", quiet=True)
+    assert "\n" not in str(info.value) and str(info.value).endswith(runner._resume_command(cfg, out))
+    assert "1 chunks kept" in str(info.value) and "failed: KilledWorker" in (tmp_path / "d.nc.log").read_text()
+    assert not (tmp_path / "d.nc.lock").exists()
+
+
 def test_failure_in_the_last_step_is_logged(tmp_path, monkeypatch):
     real = store._publish
 
