@@ -30,14 +30,16 @@ def check_summary(config: Config) -> dict[str, Any]:
     Raises
     ------
     InputError
-        When the designs would make more than ``sweep.max_variants`` variants.
+        When the designs would make more than ``sweep.max_variants`` variants,
+        or a parameter is named like a variable of the result file.
     """
-    from . import designs
+    from . import designs, runner
     from .analysis import analyze
 
-    # refuse here what `sweep run` would refuse (too many variants), so that a
-    # config that passes `check` also starts
+    # refuse here what `sweep run` would refuse (too many variants, a parameter
+    # named like a dataset variable), so that a config that passes `check` also starts
     designs.total_count(config)
+    runner._check_names(config)
     N, D = loop.assemble(config, config.nominal_values())
     result = analyze(
         N[0], D[0], feedback=config.feedback, gain_range=config.gain_range, operating_gain=config.operating_gain

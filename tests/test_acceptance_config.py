@@ -99,6 +99,8 @@ BAD = [
     ("name_with_space", _swap("a = {", '"a b" = {').replace("(s + a)", "(s + 1)"), "parameters.a b: parameter name"),
     ("name_too_long", _swap("a = {", "a" * 500 + " = {").replace("(s + a)", "(s + 1)"), "is too long (at most 64)"),
     ("name_true", _swap("a = {", '"True" = {').replace("(s + a)", "(s + 1)"), "parameters.True: 'True' is a reserved word"),
+    ("name_is_a_dataset_dimension", _swap("a = {", "gain = {").replace("(s + a)", "(s + gain)"), "parameters.gain: parameter name 'gain' is also a name in the result file"),
+    ("name_is_a_dataset_variable", _swap("a = {", "critical_gain = {").replace("(s + a)", "(s + critical_gain)"), "parameters.critical_gain"),
     ("name_pi_undefined", _swap("(s + a)", "(s + pi)"), "plant.transfer: unknown name 'pi'"),
     # expressions
     ("unbalanced_open", _swap("(b*s + 1))", "(b*s + 1)"), "plant.transfer: unbalanced parentheses: '(' at position 3"),
