@@ -49,6 +49,9 @@ CROSSING_RTOL = 1e-10
 AXIS_RTOL = 1e-13
 # both below this fraction: a root on the axis common to N and D (fixed for every k)
 FIXED_RTOL = 1e-8
+# N and D both below this fraction at a real root of N D' - N' D: a factor common to
+# both (a double root of N D' - N' D, known to about sqrt(eps)), not a breakaway point
+COMMON_RTOL = 1e-6
 # an operating gain this close (relative) to a boundary gain, or within ten times
 # the boundary gain's estimated error (at most ON_BOUNDARY_MAX: a tangent touch
 # has an unbounded first-order estimate but about half the digits), is on the boundary
@@ -978,9 +981,14 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
             x = x - step
             Dx = _horner(Ds_, x)
             Nx = _horner(Ns_, x)
-            if abs(Nx) <= AXIS_RTOL * _horner_abs(Ns_, abs(x)):
+            aNx = _horner_abs(Ns_, abs(x))
+            aDx = _horner_abs(Ds_, abs(x))
+            if abs(Nx) <= COMMON_RTOL * aNx and abs(Dx) <= COMMON_RTOL * aDx:
+                continue            # a factor common to N and D: k = -D/N is 0/0 there, the
+                                    # fixed closed-loop root is no breakaway point
+            if abs(Nx) <= AXIS_RTOL * aNx:
                 continue            # a zero of N: reached only as k -> inf
-            if abs(Dx) <= AXIS_RTOL * _horner_abs(Ds_, abs(x)):
+            if abs(Dx) <= AXIS_RTOL * aDx:
                 kb = 0.0            # a multiple pole of D: branches leave it at k = 0
             else:
                 kb = -Dx / (sigma * Nx) * gv

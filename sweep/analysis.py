@@ -32,7 +32,9 @@ Numerical rules (constants in `sweep._analysis_kernel`):
   made of); small uncancelled ones are kept (wide coefficient spreads have
   them); ``N`` loses leading coefficients below ``1e-13`` of its largest;
 * a computed root counts as real when ``|Im| <= 1e-6 |z|``; a cluster of
-  nearly equal real breakaway roots (a multiple root) is one point;
+  nearly equal real breakaway roots (a multiple root) is one point; a real
+  root where both ``N`` and ``D`` are below ``1e-6`` of their terms (a
+  factor common to both: the gain is 0/0) is no breakaway point;
 * at a positive root of ``F`` where ``|D(jw)|`` is below ``1e-13`` of its
   terms, ``D`` has an axis root: the crossing is at ``k = 0`` exactly;
   where ``|N(jw)|`` is, ``N`` has an axis zero: no crossing (``k = inf``);

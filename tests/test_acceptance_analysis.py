@@ -372,3 +372,15 @@ def test_every_new_loop_gives_strict_json():
         d = analyze(num, den, feedback=fb, gain_range=gr, operating_gain=k0).to_dict()
         text = json.dumps(d, allow_nan=False)
         assert json.loads(text)["reference_gain"] == (gr[0] if k0 is None else k0)
+
+
+def test_real_factor_common_to_n_and_d_is_no_breakaway_point():
+    # (s+1)/(s(s+1)(s+2)(s+3)): the cancelled factor keeps a closed-loop root at -1 for
+    # every gain; there k = -D/N is 0/0 (N D' - N' D has a double root there), not a
+    # breakaway point. The reduced loop 1/(s(s+2)(s+3)) breaks away where 3s^2 + 10s + 6
+    # = 0, at (-10 + sqrt 28)/6, and loses stability at k = 30 (hand Routh array, from memory)
+    a = analyze([1, 1], np.real(np.poly([-1.0, -2.0, -3.0, 0.0])))
+    s_b = (-10 + math.sqrt(28)) / 6
+    k_b = -s_b * (s_b + 2) * (s_b + 3)
+    assert a.breakaway_points == [(pytest.approx(s_b, rel=1e-10), pytest.approx(k_b, rel=1e-10))]
+    assert a.critical_gain == pytest.approx(30.0, rel=1e-12) and not a.fixed_axis_root
