@@ -42,7 +42,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("check", help="validate a config and analyse the nominal loop",
                        description="Validate CONFIG, print the parameter table, the nominal open loop and its stability analysis, and estimate the run time. Nothing is written.")
     p.add_argument("config", metavar="CONFIG", help="TOML config file")
-    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.add_argument("--json", action="store_true",
+                   help="print JSON instead of text (for a bad config: valid false and the error, exit status 2)")
 
     p = sub.add_parser("run", help="run the sweep and store the results (resumable)",
                        description="Generate the variants of CONFIG, analyse each one in parallel chunks and store the dataset as netCDF. Finished chunks are kept in OUT.parts/ and survive a crash; rerun (or --resume) to finish. A log goes to OUT.log.")
@@ -111,6 +112,11 @@ def main(argv: Sequence[str] | None = None) -> int:
         if args.debug:
             raise
         print(f"sweep {args.command}: {exc.line()}", file=sys.stderr)
+        if args.command == "check" and getattr(args, "json", False):
+            # a script reading `check --json` gets the verdict in the same shape as a good config
+            from .jsonutil import dumps
+
+            print(dumps({"valid": False, "error": exc.line(), "file": exc.file, "field": exc.field, "message": exc.message}))
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("\ninterrupted", file=sys.stderr)

@@ -223,7 +223,11 @@ def test_bad_config_exit_2_one_line_nothing_written(tmp_path: Path, monkeypatch,
     path.write_text(text, encoding="utf-8")
     before = _listing(tmp_path)
     _assert_one_clean_line(*_run_cli(["check", str(path)], capsys), path, needle, "check")
-    _assert_one_clean_line(*_run_cli(["check", "--json", str(path)], capsys), path, needle, "check")
+    code, out, err = _run_cli(["check", "--json", str(path)], capsys)
+    _assert_one_clean_line(code, "", err, path, needle, "check")
+    verdict = json.loads(out)  # the same error, for scripts
+    assert verdict["valid"] is False and verdict["file"] == str(path)
+    assert err.strip() == f"sweep check: {verdict['error']}"
     _assert_one_clean_line(*_run_cli(["run", str(path), "-o", str(tmp_path / "out" / "kiln.nc"), "--quiet"], capsys),
                            path, needle, "run")
     _assert_one_clean_line(*_run_cli(["run", str(path), "--quiet"], capsys), path, needle, "run")  # default results/
