@@ -1127,8 +1127,9 @@ def plane_figure(ds: xr.Dataset, params: Sequence[str] | None, *, dpi: float | N
         if extra:
             _legend(fig, extra, ncol=min(len(extra), 2), loc="lower center", frameon=False,
                     bbox_to_anchor=(0.5, 0.0))
+        others = table.attrs["others"]
         sub = (f"Critical gain over {a} and {b} ({table.attrs['n_variants']} grid variants, "
-               f"minimum over {table.attrs['others'] or 'nothing else'})")
+               + (f"minimum over {others})" if others else "no other uncertain parameter)"))
         if table.attrs["not_computed"]:
             sub += f"; {table.attrs['not_computed']} variants without a computed value left out"
         _title(fig, ds, sub)

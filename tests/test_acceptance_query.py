@@ -275,7 +275,8 @@ def test_plane_takes_the_only_two_uncertain_parameters(runs):
     ds = runs["press"]  # a, b uncertain; c fixed; grid 3 x 3
     t = plane_table(ds, None)
     assert set(t.dims) == {"a", "b"} and t.shape == (3, 3)
-    assert figure(ds, "plane") is not None
+    sub = " ".join(t.get_text() for t in figure(ds, "plane").texts).replace("\n", " ")
+    assert "no other uncertain parameter" in sub, sub
 
 
 def test_plane_refusals_say_what_the_result_lacks(runs, edge):
