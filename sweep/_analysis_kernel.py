@@ -1071,7 +1071,8 @@ def _finish_block(v0, v1, skip, N, D, Ds, Ns, w0, g, F, uroots, poles_t, zeros_t
                 gm = fV[FV_CRIT, v] / k_op
                 fV[FV_GM, v] = gm
                 fV[FV_GM_DB, v] = 20.0 * math.log10(gm) if gm > 0.0 else (-math.inf if gm == 0.0 else nan)
-                fV[FV_LGM, v] = fV[FV_CRIT_LOW, v] / k_op if fV[FV_CRIT_LOW, v] > 0.0 else nan
+                # only where stability is lost below (a boundary gain, not the range's end)
+                fV[FV_LGM, v] = fV[FV_CRIT_LOW, v] / k_op if j > 0 and fV[FV_CRIT_LOW, v] > 0.0 else nan
             else:
                 fV[FV_GM, v] = nan
                 fV[FV_GM_DB, v] = nan

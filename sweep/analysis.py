@@ -118,7 +118,8 @@ _A = {
     "stable_at_start": ("closed loop stable just above the lower end of the gain range (1/0)", "1"),
     "gain_margin": ("upper gain margin critical_gain / operating_gain", "1"),
     "gain_margin_db": ("upper gain margin in decibels", "dB"),
-    "lower_gain_margin": ("lower gain margin critical_gain_low / operating_gain", "1"),
+    "lower_gain_margin": ("lower gain margin critical_gain_low / operating_gain, where stability is lost "
+                          "below (NaN when the stable interval reaches down to the range's lower end)", "1"),
     "min_damping": ("smallest damping ratio of the closed-loop poles at the operating gain", "1"),
     "dominance_ratio": ("real part of the next-slowest closed-loop pole (or pair) over the slowest's", "1"),
     "second_order_ok": ("dominance ratio at least 10 (rule of thumb for a second-order approximation)", "1"),

@@ -384,3 +384,17 @@ def test_real_factor_common_to_n_and_d_is_no_breakaway_point():
     k_b = -s_b * (s_b + 2) * (s_b + 3)
     assert a.breakaway_points == [(pytest.approx(s_b, rel=1e-10), pytest.approx(k_b, rel=1e-10))]
     assert a.critical_gain == pytest.approx(30.0, rel=1e-12) and not a.fixed_axis_root
+
+
+def test_lower_gain_margin_only_where_stability_is_lost_below():
+    # 1/(s(s+4)(s+5)) is stable for 0 < k < 180 (hand Routh array: 9 * 20 = 180, from
+    # memory). With the range starting at 3 the stable interval is (3, 180): its lower
+    # end is the range's, the loop stays stable below it, so there is no lower margin
+    a = analyze([1], poly([1, 0], [1, 4], [1, 5]), gain_range=(3, INF), operating_gain=10.0)
+    assert a.critical_gain_low == 3.0 and a.critical_gain == pytest.approx(180.0, rel=1e-12)
+    assert math.isnan(a.lower_gain_margin)
+    assert a.gain_margin == pytest.approx(18.0, rel=1e-12)
+    # s^3 + k(s+1)^2 loses stability below k = 1/2 (hand Routh array, from memory):
+    # a lower margin whatever the range's lower end
+    b = analyze([1, 2, 1], [1, 0, 0, 0], gain_range=(0.1, INF), operating_gain=2.0)
+    assert b.lower_gain_margin == pytest.approx(0.25, rel=1e-10)
