@@ -128,6 +128,8 @@ def routh_array(coeffs) -> tuple[np.ndarray, int]:
     0
     """
     c = np.atleast_1d(np.asarray(coeffs, dtype=float))
+    if c.ndim != 1 or not np.all(np.isfinite(c)):
+        raise ValueError("routh_array needs one list of finite coefficients")
     c = np.trim_zeros(c, "f")
     if c.size == 0:
         raise ValueError("routh_array needs a nonzero polynomial")

@@ -398,3 +398,30 @@ def test_lower_gain_margin_only_where_stability_is_lost_below():
     # a lower margin whatever the range's lower end
     b = analyze([1, 2, 1], [1, 0, 0, 0], gain_range=(0.1, INF), operating_gain=2.0)
     assert b.lower_gain_margin == pytest.approx(0.25, rel=1e-10)
+
+
+@pytest.mark.parametrize("coeffs,expect", [
+    ([1, 2, 2, 4, 11, 10], 2),                          # epsilon rule (textbook example, from memory)
+    (np.polymul([1, 0, -1], [1, 2]), 1),               # row of zeros from the pair +-1
+    ([1, 0, 0, 0, -1], 1),                              # s^4 - 1: roots +-1, +-j
+    (np.polymul(np.polymul([1, 0, 1], [1, 0, 1]), [1, 0, 2]), 0),   # two rows of zeros, all on the axis
+    ([-1, -2, -3, -1], 0),                              # negative leading coefficient
+    (np.polymul([1, 2, 5], [1, -2, 5]), 2),             # mirror-image pairs
+    ([1, -3], 1),
+])
+def test_routh_counts_on_new_polynomials(coeffs, expect):
+    # reference: the number of mpmath 50-digit roots with positive real part
+    from sweep.routh import routh_array
+
+    with mpmath.workdps(50):
+        roots = mpmath.polyroots([mpmath.mpf(float(x)) for x in coeffs], maxsteps=500, extraprec=500)
+    assert sum(1 for z in roots if z.real > 1e-30) == expect
+    assert routh_array(coeffs)[1] == expect
+
+
+def test_routh_array_refuses_non_finite_coefficients():
+    from sweep.routh import routh_array
+
+    for bad in ([math.nan, 1.0], [1.0, math.inf], [[1.0, 2.0], [3.0, 4.0]]):
+        with pytest.raises(ValueError):
+            routh_array(bad)
