@@ -425,3 +425,22 @@ def test_routh_array_refuses_non_finite_coefficients():
     for bad in ([math.nan, 1.0], [1.0, math.inf], [[1.0, 2.0], [3.0, 4.0]]):
         with pytest.raises(ValueError):
             routh_array(bad)
+
+
+@pytest.mark.parametrize("delta", [1e-2, 1e-6, 1e-8, 1e-10, 1e-12, 1e-14, -1e-14, -1e-12, -1e-10, -1e-6])
+def test_near_tangent_family_is_right_or_flagged(delta):
+    # s(s^2+s+1) + k(s^2+s+4+delta): the tangent touch at k = 1 splits into two close
+    # crossings (delta > 0) or none (delta < 0). Either the digits are right (sympy exact
+    # Hurwitz determinants) or the result is flagged ill-conditioned - never silently wrong
+    num, den = [1, 1, 4 + delta], [1, 1, 1, 0]
+    a = analyze(num, den)
+    g_ref, w_ref, iv_ref = sympy_reference(num, den, 1, 0, None)
+    ours = _canonical(a.boundary_gains, a.boundary_frequencies)
+    ref = _canonical(g_ref, w_ref)
+    right = (len(ours) == len(ref) and all(_close(x, y) and _close(wx, wy, 1e-8)
+                                           for (x, wx), (y, wy) in zip(ours, ref))
+             and len(a.stable_intervals) == len(iv_ref)
+             and all(_close(x0, y0) and _close(x1, y1) for (x0, x1), (y0, y1) in zip(a.stable_intervals, iv_ref)))
+    assert right or a.ill_conditioned
+    if abs(delta) >= 1e-6:
+        assert right and not a.ill_conditioned
