@@ -185,10 +185,36 @@ def _legend(fig, handles: list, *, ncol: int, **kw):
     return None
 
 
+def _shorten_to_width(fig, text, right: float = 0.99) -> None:
+    """Cut a one-line figure text with an ellipsis so it ends left of ``right`` (figure fraction)."""
+    s = text.get_text()
+    r = _renderer(fig)
+    while len(s) > 10 and text.get_window_extent(r).x1 > right * fig.bbox.width:
+        s = s[: int(len(s) * 0.95)].rstrip()
+        text.set_text(s + "\u2026")
+
+
+def _fit_xlabels(fig, axes) -> None:
+    """Axis labels wider than their axes: units on a second line, then a smaller font."""
+    r = _renderer(fig)
+    for ax in axes:
+        label = ax.xaxis.label
+        room = ax.get_window_extent(r).width * 1.1  # a label may reach a little past its axes
+        if label.get_window_extent(r).width <= room:
+            continue
+        t = label.get_text()
+        if " [" in t:
+            label.set_text(t.replace(" [", "\n[", 1))
+        size = label.get_fontsize()
+        while label.get_window_extent(r).width > room and size > 6:
+            size -= 0.5
+            label.set_fontsize(size)
+
+
 def _title(fig, ds: xr.Dataset, subtitle: str) -> None:
     title = str(ds.attrs.get("title", "")).strip() or "sweep result"
     head = fig.suptitle(title, fontsize=11, fontweight="bold", x=0.01, ha="left")
-    _wrap_to_width(fig, head)
+    _shorten_to_width(fig, head)  # one line: the subtitle sits right below it
     sub = fig.text(0.01, 0.935, subtitle, fontsize=9, color="#404040", ha="left", va="top")
     _wrap_to_width(fig, sub)
 
@@ -707,6 +733,7 @@ def limits_figure(ds: xr.Dataset, *, dpi: float | None = None):
                 ax.set_ylabel("critical gain")
         for k in range(n, rows * cols):
             axes[k // cols][k % cols].set_visible(False)
+        _fit_xlabels(fig, [axes[k // cols][k % cols] for k in range(n)])
         handles = [Line2D([], [], marker="o", ls="none", color=DESIGN_COLOURS.get(d, GREY), ms=5,
                           label=f"{d} ({int((design == d).sum())})") for d in present if d != "nominal"]
         if nom is not None:

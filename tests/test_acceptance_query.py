@@ -350,3 +350,25 @@ def test_sensitivity_says_why_nothing_is_ranked(edge):
     assert "keeps stability over the whole gain range" in inf and "unstable" not in inf
     uns = summarize(edge["all_unstable"])["sensitivity_method"]["note"]
     assert "is unstable at the reference gain" in uns and "inf" not in uns
+
+
+def test_long_title_and_long_parameter_names_do_not_collide():
+    ds = make_dataset(designs=("nominal", "corners", "grid", "random"), samples=20, levels=3,
+                      points=20, title="A winch drum position loop with a tacho path in the sensor "
+                                       "and three uncertain parameters, named the long way round")
+    ds = ds.rename({"J": "drum_rotor_inertia_total", "L": "armature_winding_inductance"})
+    for n in ("drum_rotor_inertia_total", "armature_winding_inductance"):
+        ds[n].attrs["units"] = "kg m^2 per unit"
+    for what in KINDS:
+        fig = figure(ds, what, params=("drum_rotor_inertia_total", "armature_winding_inductance"))
+        assert _outside(fig) == [], what
+        r = fig._get_renderer()
+        texts = [t for t in fig.texts if t.get_text()]
+        for i, a in enumerate(texts):  # title, subtitle and notes apart
+            for b in texts[i + 1:]:
+                assert not a.get_window_extent(r).overlaps(b.get_window_extent(r)), (what, a, b)
+        labels = [ax.xaxis.label.get_window_extent(r) for ax in fig.axes
+                  if ax.get_visible() and ax.get_xlabel()]
+        for i, a in enumerate(labels):  # neighbouring panels' axis labels apart
+            for b in labels[i + 1:]:
+                assert not a.overlaps(b), what
