@@ -66,6 +66,9 @@ FUNCTIONS = ("sqrt", "exp", "log", "sin", "cos", "tan")
 _ALLOWED = "numbers, parameter names, s, + - * / ^ **, parentheses and the functions " + ", ".join(FUNCTIONS)
 # integer powers of expressions in s beyond this would blow up the degree
 MAX_S_POWER = 64
+# bound on the degree in s an expression can reach (the loop itself takes at most 50 poles);
+# without it ((s + 1)^64)^64 would spend minutes multiplying polynomials before any check
+MAX_S_DEGREE = 200
 # a config expression is a line or two; these bound the parser's and the evaluators' recursion
 MAX_TEXT = 10_000
 MAX_NESTING = 100
@@ -469,6 +472,34 @@ def check(node: Node, known: Any, *, allow_s: bool) -> None:
     if not allow_s:
         raise _err("the Laplace variable 's' is not allowed in this expression; use parameter names and numbers only")
     _check_s(node)
+    degree = max(_degree_bound(node))
+    if degree > MAX_S_DEGREE:
+        raise _err(
+            f"the expression can reach degree {degree} in s, beyond the {MAX_S_DEGREE} allowed "
+            f"(a loop has at most a few dozen poles); write the model with fewer or smaller powers of s"
+        )
+
+
+def _degree_bound(node: Node) -> tuple[int, int]:
+    """Upper bounds on the degrees (numerator, denominator) in s of a tree that passed `_check_s`."""
+    if not has_s(node):
+        return 0, 0
+    if isinstance(node, S):
+        return 1, 0
+    if isinstance(node, Neg):
+        return _degree_bound(node.operand)
+    if isinstance(node, Binary):
+        (n1, d1), (n2, d2) = _degree_bound(node.left), _degree_bound(node.right)
+        if node.op == "*":
+            return n1 + n2, d1 + d2
+        if node.op == "/":
+            return n1 + d2, d1 + n2
+        return max(n1 + d2, n2 + d1), d1 + d2
+    if isinstance(node, Power):
+        n = _literal_int(node.exponent)
+        nb, db = _degree_bound(node.base)
+        return (n * nb, n * db) if n >= 0 else (-n * db, -n * nb)
+    raise TypeError(f"not an expression node: {node!r}")
 
 
 def _check_s(node: Node) -> None:
