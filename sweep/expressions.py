@@ -458,6 +458,12 @@ def check(node: Node, known: Any, *, allow_s: bool) -> None:
     known = set(known)
     for nm in sorted(names(node)):
         if nm not in known:
+            if nm in ("k", "K"):  # the swept gain is never written; 'k' cannot even be a parameter
+                raise _err(f"unknown name '{nm}': the loop gain k is what the sweep varies and stays out of the "
+                           f"expressions (the open loop is k C(s) G(s) H(s)); remove it"
+                           + (" or define K as a parameter" if nm == "K" else ""))
+            if nm == "S":
+                raise _err("unknown name 'S': the Laplace variable is written in lower case, s")
             close = [k for k in sorted(known) if k.lower() == nm.lower()]
             close = close or difflib.get_close_matches(nm, sorted(known), n=1, cutoff=0.5)  # short names: 'Kn' ~ 'Km'
             if close:

@@ -101,6 +101,8 @@ BAD = [
     ("name_true", _swap("a = {", '"True" = {').replace("(s + a)", "(s + 1)"), "parameters.True: 'True' is a reserved word"),
     ("name_is_a_dataset_dimension", _swap("a = {", "gain = {").replace("(s + a)", "(s + gain)"), "parameters.gain: parameter name 'gain' is also a name in the result file"),
     ("name_is_a_dataset_variable", _swap("a = {", "critical_gain = {").replace("(s + a)", "(s + critical_gain)"), "parameters.critical_gain"),
+    ("gain_written_in_plant", _swap("1/(s*", "k/(s*"), "plant.transfer: unknown name 'k': the loop gain k is what the sweep varies"),
+    ("capital_s", _swap("(s + a)", "(S + a)"), "plant.transfer: unknown name 'S': the Laplace variable is written in lower case, s"),
     ("name_pi_undefined", _swap("(s + a)", "(s + pi)"), "plant.transfer: unknown name 'pi'"),
     # expressions
     ("unbalanced_open", _swap("(b*s + 1))", "(b*s + 1)"), "plant.transfer: unbalanced parentheses: '(' at position 3"),
