@@ -305,3 +305,24 @@ def test_batch_with_multiple_roots_on_the_grid_equals_one_at_a_time():
     for i in range(7):
         np.testing.assert_array_equal(full[i], trace(N[i:i + 1], D[i:i + 1], sigma=1, gains=g)[0])
     assert_continuous(full, rtol=1e-7)
+
+
+def test_operating_gain_chosen_for_critical_damping():
+    # a common design choice: the gain of the breakaway point, where the closed loop is
+    # critically damped; 1/(s(s+2)) at k = 1 gives (s+1)^2 (from memory). The sweep's
+    # grid holds the operating gain, so the tracer meets the double root exactly there.
+    from sweep.analysis import analyze_stack
+
+    N, D = np.array([[1.0]]), np.array([[1.0, 2.0, 0.0]])
+    a = analyze([1.0], [1.0, 2.0, 0.0], operating_gain=1.0)
+    assert a.breakaway_points == [(pytest.approx(-1.0), pytest.approx(1.0))]
+    g = gain_grid(50, (0, math.inf), nominal_N=N, nominal_D=D, sigma=1, operating_gain=1.0)
+    at = int(np.flatnonzero(g == 1.0)[0])
+    ch = trace_chunk(N, D, sigma=1, gains=g, keep=np.ones(1, bool), operating_index=at)
+    np.testing.assert_allclose(ch.operating_roots[0], -1.0, atol=1e-7)   # double root: sqrt(eps)
+    assert_continuous(ch.kept_roots)
+    # the analysis with the traced roots handed over, as a run does it
+    out = analyze_stack(N, D, sigma=1, operating_gain=1.0, closed_loop_poles=ch.operating_roots,
+                        open_loop_poles=ch.open_loop_poles)
+    assert out["stable_at_reference"][0] == 1 and out["critical_gain"][0] == math.inf
+    assert out["min_damping"][0] == pytest.approx(1.0, abs=1e-7)
