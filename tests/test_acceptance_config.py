@@ -527,3 +527,27 @@ def test_load_config_reads_a_path_object(tmp_path: Path):
     assert load_config(path).source == str(path)
     assert load_config(str(path)).stem == "kiln"
     assert os.listdir(tmp_path) == ["kiln.toml"]
+
+
+def test_parameters_used_only_in_controller_and_sensor(recwarn):
+    # a lead network zero z and a sensor lag T carry the tolerances; the plant is fixed
+    text = """
+[parameters]
+z = { nominal = 20, tol = "10%" }
+T = { nominal = 1e-3, tol = ["0%", "50%"] }
+[plant]
+num = [1]
+den = [1, 3, 2, 0]
+[loop]
+controller = "(s + z)/(s + 200)"
+sensor = "1/(T*s + 1)"
+"""
+    config = parse_config(text, source="lead.toml")
+    assert [p.name for p in config.uncertain] == ["z", "T"]
+    assert not [w for w in recwarn if "appear in no expression" in str(w.message)]
+    N, D = assemble(config, {"z": np.array([18.0, 22.0]), "T": np.array([1e-3, 1.5e-3])})
+    np.testing.assert_allclose(N, [[1.0, 18.0], [1.0, 22.0]])
+    # D = (s + 200) (s^3 + 3 s^2 + 2 s) (T s + 1), expanded by hand
+    for row, t in zip(D, (1e-3, 1.5e-3)):
+        expected = np.polymul(np.polymul([1.0, 200.0], [1.0, 3.0, 2.0, 0.0]), [t, 1.0])
+        np.testing.assert_allclose(row, expected, rtol=1e-14)
