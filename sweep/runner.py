@@ -43,8 +43,9 @@ Files next to ``OUT``:
 
 A rerun (with or without ``resume=True``) checks every existing part (it
 must be readable, carry this config's sha256, hold exactly its chunk's
-variants with this run's parameter values, gain grid and kept loci) and
-computes only the missing or bad ones. A parts folder written for another
+variants with this run's parameter values, gain grid and kept loci, and
+have been computed by this code: `CODE_SHA256`) and computes only the
+missing or bad ones. A parts folder written for another
 config is refused; an unreadable manifest is written again (the parts are
 checked against it). If ``OUT`` is already complete for this config (same
 sha256 and sweep version) the run returns it without work, removing a parts
@@ -87,6 +88,25 @@ RESERVED = {
     "variant", "boundary", "pole", "zero", "breakaway", "gain", "branch", "locus_variant", "design",
     "locus_real", "locus_imag", "abscissa_min", "abscissa_max", "abscissa_mean", *store.ENVELOPE_VARS,
 }
+
+
+def _code_sha256() -> str:
+    """sha256 of this package's source files, read when the module is imported.
+
+    Every part records the code that computed it (attribute ``code_sha256``):
+    a resumed run recomputes parts made by other code (an upgrade, an edited
+    install), so that it still equals an uninterrupted run, and a Dask
+    cluster whose workers run other code is refused.
+    """
+    import hashlib
+
+    h = hashlib.sha256()
+    for f in sorted(Path(__file__).resolve().parent.glob("*.py")):
+        h.update(f.name.encode() + b"\0" + f.read_bytes() + b"\0")
+    return h.hexdigest()
+
+
+CODE_SHA256 = _code_sha256()
 
 
 class Interrupted(SweepError):
@@ -420,6 +440,7 @@ def _compute_and_write(fn: Callable, config: Config, i: int, variants: Variants,
     part = fn(config, variants, gains, kept)
     t1 = time.perf_counter()
     part.attrs.update(attrs)
+    part.attrs["code_sha256"] = CODE_SHA256  # of the process that computed it
     part.attrs["compute_seconds"] = t1 - t0  # for the run's log when a worker computed it
     store.write_part(part, path)
     return i, part, t1 - t0, time.perf_counter() - t1
@@ -506,6 +527,7 @@ def _compute(fn: Callable, config: Config, i: int, variants: Variants, gains: np
     """Compute chunk ``i`` on a Dask worker; the run's own process writes the part."""
     t0 = time.perf_counter()
     part = fn(config, variants, gains, kept)
+    part.attrs["code_sha256"] = CODE_SHA256  # of the worker: checked by the run
     return i, part, time.perf_counter() - t0
 
 
@@ -793,6 +815,9 @@ def _run_dask(tasks: deque, make: Callable, scheduler: str, write: Callable, don
             if fut.status == "error":
                 fut.result()  # re-raises the worker's own exception
             i, part, seconds = fut.result()
+            if part.attrs.get("code_sha256") != CODE_SHA256:
+                raise SweepError(f"the Dask workers run another version of sweep than this process (chunk {i});"
+                                 " install the same version on every worker and run again")
             fut.release()
             t0 = time.perf_counter()
             write(i, part)
@@ -1000,6 +1025,8 @@ def _compute_and_merge(config: Config, out: Path, parts: Path, log: _Log, varian
         """A part on disk, read and checked against this run (`store.PartError` if it does not belong)."""
         a, b = ranges[i]
         part = store.read_part(path, config_sha256=config.sha256, start=a, stop=b)
+        if part.attrs.get("code_sha256") != CODE_SHA256:
+            raise store.PartError(f"{path.name}: computed by another version of sweep")
         if not layout:  # a part laid out otherwise (another version of sweep) is computed again
             layout.append(_own_compute_chunk(config, variants.slice(0, 1), gains, mask[:1]))
         store.check_layout(layout[0], part, path.name)

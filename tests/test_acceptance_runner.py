@@ -8,6 +8,7 @@ import os
 import signal
 import subprocess
 import sys
+import time
 
 import numpy as np
 import pytest
@@ -124,18 +125,22 @@ def test_lock_appears_with_its_contents(tmp_path, monkeypatch):
 # ------------------------------------------------------------------ failures and Ctrl-C
 
 
-def _kill_self_in_worker(config, variants, gains, kept, *, here=os.getpid(), real=runner.compute_chunk):
-    """compute_chunk, except that a worker process is killed (SIGKILL) on its first real chunk."""
-    if os.getpid() != here and variants.count > 1:
-        os.kill(os.getpid(), signal.SIGKILL)
-    return real(config, variants, gains, kept)
-
-
 def test_worker_killed_from_outside(tmp_path, reference, monkeypatch):
     """A worker killed by the system has no error of its own: one line, the resume command,
     the parts finished so far kept; the rerun gives the uninterrupted result exactly."""
-    monkeypatch.setattr(runner, "_START_METHOD", "fork")  # the workers inherit the patch below
-    monkeypatch.setattr(runner, "compute_chunk", _kill_self_in_worker)
+    here, real, flag = os.getpid(), runner.compute_chunk, tmp_path / "a worker took a chunk"
+
+    def kill_self_in_worker(config, variants, gains, kept):
+        if os.getpid() != here and variants.count > 1:  # a real chunk (not the warm-up) in the worker
+            flag.touch()
+            os.kill(os.getpid(), signal.SIGKILL)
+        t0 = time.time()  # this process waits for the worker to take a chunk
+        while os.getpid() == here and not flag.exists() and time.time() - t0 < 60:
+            time.sleep(0.02)
+        return real(config, variants, gains, kept)
+
+    monkeypatch.setattr(runner, "_START_METHOD", "fork")  # the worker inherits the patch
+    monkeypatch.setattr(runner, "compute_chunk", kill_self_in_worker)
     cfg = load_config(write_config(tmp_path))
     out = tmp_path / "w.nc"
     with pytest.raises(SweepError, match="worker process died") as info:
@@ -264,6 +269,21 @@ def test_every_kind_of_damaged_part_is_computed_again(tmp_path, reference):
     for i, why in enumerate(["unreadable", "unreadable", "unreadable", "written for another config",
                              "written for another config", "holds other variables"]):
         assert f"chunk {i}: chunk-0000{i}.nc: {why}" in log, why
+    assert "0 valid on disk, 6 to compute" in log
+    xr.testing.assert_identical(load(out), reference)
+
+
+def test_part_computed_by_other_code_is_computed_again(tmp_path, reference, monkeypatch):
+    """Parts record the code that computed them: after an upgrade (or an edit of an installed
+    copy) a resumed run recomputes the old parts and still equals an uninterrupted run."""
+    cfg = load_config(write_config(tmp_path))
+    out = tmp_path / "v.nc"
+    monkeypatch.setattr(runner, "CODE_SHA256", "0" * 64)  # the code before the upgrade
+    _stopped_before_merge(cfg, out)
+    monkeypatch.undo()
+    runner.run(cfg, out=out, jobs=1, quiet=True)
+    log = (tmp_path / "v.nc.log").read_text()
+    assert "chunk 0: chunk-00000.nc: computed by another version of sweep" in log
     assert "0 valid on disk, 6 to compute" in log
     xr.testing.assert_identical(load(out), reference)
 
