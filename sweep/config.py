@@ -123,6 +123,8 @@ _LOCUS_KEYS = ("points", "keep")
 _RESERVED_NAMES = ("s", "sqrt", "exp", "log", "sin", "cos", "tan", "k")
 _NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 MAX_NAME = 64
+# nonzero finite gains outside this range underflow or overflow in D + k N
+GAIN_LIMITS = (1e-300, 1e300)
 # a config is a page of text; this only stops a wrong path (a device, a data file) from filling memory
 MAX_FILE_BYTES = 10_000_000
 # the locus grid is per variant; beyond this the run only burns memory
@@ -346,6 +348,13 @@ def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
     return Parameter(name, nominal, low, high, dist, units)
 
 
+def _gain_size(r: _Reader, k: float, field_name: str) -> None:
+    """Refuse gains at the edge of floating point: k N would underflow or D + k N overflow."""
+    if k != 0 and math.isfinite(k) and not GAIN_LIMITS[0] <= abs(k) <= GAIN_LIMITS[1]:
+        raise r.fail(field_name, f"a gain of {k:g} is at the edge of floating point; use 0, inf or a gain between "
+                                 f"{GAIN_LIMITS[0]:g} and {GAIN_LIMITS[1]:g} (rescale the plant if the loop needs more)")
+
+
 def _expression(r: _Reader, value: Any, field_name: str, known: set[str], *, allow_s: bool):
     from . import expressions
 
@@ -436,12 +445,15 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
         hi = r.number(g[1], "loop.gain_range[1]", allow_inf=True)
         if lo < 0:
             raise r.fail("loop.gain_range[0]", "gains must not be negative; for a negative gain use feedback = \"positive\"")
+        _gain_size(r, lo, "loop.gain_range[0]")
+        _gain_size(r, hi, "loop.gain_range[1]")
         if not lo < hi:
             raise r.fail("loop.gain_range", f"low ({lo:g}) must be below high ({hi:g}); write [low, high]")
         gain_range = (lo, hi)
     operating_gain = None
     if "operating_gain" in loop:
         operating_gain = r.number(loop["operating_gain"], "loop.operating_gain")
+        _gain_size(r, operating_gain, "loop.operating_gain")
         if not gain_range[0] < operating_gain < gain_range[1]:
             raise r.fail("loop.operating_gain", f"{operating_gain:g} is not strictly inside gain_range ({gain_range[0]:g}, {gain_range[1]:g}); move it inside or widen the range")
 
