@@ -13,6 +13,7 @@ import json
 import math
 import operator
 import os
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -554,3 +555,31 @@ sensor = "1/(T*s + 1)"
     for row, t in zip(D, (1e-3, 1.5e-3)):
         expected = np.polymul(np.polymul([1.0, 200.0], [1.0, 3.0, 2.0, 0.0]), [t, 1.0])
         np.testing.assert_allclose(row, expected, rtol=1e-14)
+
+
+_TOKENS = ["s", "a", "b", "1", "0", "2.5", "1e-3", "1e300", "+", "-", "*", "/", "^", "**", "(", ")", "sqrt(",
+           "exp(", "log(", "tan(", "-1", " ", "64", "a^b", "s^2", "k", "S", "2s", ",", "%", "\u2212"]
+_VALUES = ['1', '0', '-1', '"10%"', '"0%"', '1e300', '1e-300', '"x"', '[1, 2]', '[]', '{}', 'true', 'inf', '-inf',
+           'nan', '"-20%/+80%"', '["5%", "99%"]', '2.5', '1e-320', '99999999999999999999', '"+-5%"', '"-5%"']
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    st.lists(st.sampled_from(_TOKENS), min_size=1, max_size=14).map("".join),
+    st.dictionaries(st.sampled_from(["nominal", "tol", "low", "high", "dist", "units"]), st.sampled_from(_VALUES), max_size=4),
+    st.lists(st.sampled_from(_TOKENS), min_size=1, max_size=8).map("".join),
+    st.sampled_from(_VALUES),
+    st.sampled_from(_VALUES),
+)
+def test_any_garbage_is_input_error_or_a_config(transfer: str, spec: dict, controller: str, g0: str, g1: str):
+    """Whatever a user writes, loading gives a Config or one InputError line, never another exception."""
+    fields = ", ".join(f"{k} = {v}" for k, v in spec.items())
+    text = (f'[parameters]\na = {{ nominal = 2, tol = "10%" }}\nb = {{ {fields} }}\n[plant]\n'
+            f'transfer = "{transfer}"\n[loop]\ncontroller = "{controller}"\ngain_range = [{g0}, {g1}]\n')
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            parse_config(text, source="fuzz.toml")
+        except InputError as exc:
+            line = exc.line()
+            assert "\n" not in line and line.startswith("fuzz.toml: ")
