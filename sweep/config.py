@@ -165,7 +165,10 @@ class _Reader:
         if isinstance(value, str) and allow_inf and value.strip().lower() in ("inf", "+inf", "infinity"):
             return math.inf
         if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise self.fail(field_name, f"expected a number, got {_kind(value)} {_show(value)}")
+            fix = ""
+            if isinstance(value, str):  # "2.5" or "2 mH": the quotes (and units) must go
+                fix = "; write the number without quotes" + ("" if field_name.startswith("loop") else " (units go in units = \"...\")")
+            raise self.fail(field_name, f"expected a number, got {_kind(value)} {_show(value)}{fix}")
         try:
             f = float(value)
         except OverflowError:  # a TOML integer beyond floating point
@@ -530,6 +533,13 @@ _TOML_HINTS = (
     ("Expected '=' after a key", "each line is key = value or [section] (TOML writes '=', not ':')"),
     ("Expected newline or end of document", "one key = value per line; expressions need quotes, e.g. transfer = \"1/(s + 1)\""),
 )
+# what the offending line itself shows, ahead of the parser's reason (outside quotes is close enough)
+_TOML_LINE_HINTS = (
+    (re.compile(r"=\s*[-+]?\d+,\d"), "write decimals with a point: 2.5, not 2,5"),
+    (re.compile(r"=\s*[-+]?\.\d|=\s*[-+]?\d+\.(?![\d])"), "write a digit on both sides of the point: 0.5 and 2.0"),
+    (re.compile(r"=\s*[-+]?\d[\d.]*(?:[eE][-+]?\d+)?\s*[A-DF-Za-df-z\u00b5\u03bc\u03a9]"),
+     "numbers take no unit letters: write nominal = 2e-3 and units = \"H\""),
+)
 _HEADER = re.compile(r"\s*\[+\s*([A-Za-z0-9_.\-\s\"']+?)\s*\]+\s*(#.*)?$")
 _KEY = re.compile(r"\s*([A-Za-z0-9_\-]+(?:\s*\.\s*[A-Za-z0-9_\-]+)*)\s*[=:]")
 
@@ -558,6 +568,11 @@ def _toml_error(r: _Reader, text: str, exc: Exception) -> InputError:
     m = re.search(r"\(at line (\d+), column (\d+)\)", message)
     reason = re.sub(r"\s*\((at line \d+, column \d+|at end of document)\)", "", message).strip()
     hint = next((h for key, h in _TOML_HINTS if reason.startswith(key)), "check the syntax of that line")
+    if m is not None:
+        number = int(m.group(1))
+        lines = text.splitlines()
+        bad_line = lines[number - 1] if 0 < number <= len(lines) else ""
+        hint = next((h for pattern, h in _TOML_LINE_HINTS if pattern.search(bad_line)), hint)
     if m is None:
         if hint.endswith("that line"):
             hint = "check the last lines of the file"
