@@ -45,7 +45,8 @@ A rerun (with or without ``resume=True``) checks every existing part (it
 must be readable, carry this config's sha256, hold exactly its chunk's
 variants with this run's parameter values, gain grid and kept loci, and
 have been computed by this code: `CODE_SHA256`) and computes only the
-missing or bad ones. A parts folder written for another
+missing or bad ones. Parts of other code (an upgrade in the middle of a
+run) are refused, and kept. A parts folder written for another
 config is refused; an unreadable manifest is written again (the parts are
 checked against it). If ``OUT`` is already complete for this config (same
 sha256 and sweep version) the run returns it without work, removing a parts
@@ -90,19 +91,28 @@ RESERVED = {
 }
 
 
-def _code_sha256() -> str:
-    """sha256 of this package's source files, read when the module is imported.
+# the modules whose code decides a part's numbers (config to assembled loop, analysis, locus, part files)
+_COMPUTING_MODULES = ("config", "expressions", "intervals", "polynomials", "loop", "rootfind", "routh",
+                      "analysis", "_analysis_kernel", "locus", "_locus_kernel", "store", "runner")
 
-    Every part records the code that computed it (attribute ``code_sha256``):
-    a resumed run recomputes parts made by other code (an upgrade, an edited
-    install), so that it still equals an uninterrupted run, and a Dask
-    cluster whose workers run other code is refused.
+
+def _code_sha256() -> str:
+    """sha256 of the sources of `_COMPUTING_MODULES`, read when this module is imported.
+
+    The manifest and every part record the code that computed them
+    (``code_sha256``): a run is resumed only by the same code (after an
+    upgrade or an edit of the installed copy it is refused and its parts
+    kept, since a mix of two versions' numbers would equal neither run), a
+    stray part made by other code is computed again, and a Dask cluster
+    whose workers run other code is refused. Modules that only read
+    results (query, plots, ...) are left out: changing them keeps the parts.
     """
     import hashlib
 
     h = hashlib.sha256()
-    for f in sorted(Path(__file__).resolve().parent.glob("*.py")):
-        h.update(f.name.encode() + b"\0" + f.read_bytes() + b"\0")
+    folder = Path(__file__).resolve().parent
+    for name in _COMPUTING_MODULES:
+        h.update(name.encode() + b"\0" + (folder / f"{name}.py").read_bytes() + b"\0")
     return h.hexdigest()
 
 
@@ -605,6 +615,14 @@ def _manifest(config: Config, out: Path, parts: Path, variants: Variants, log: _
                     f" {man.get('sweep_version')}); remove that folder or choose another -o",
                     file=config.source,
                 )
+            if man.get("code_sha256", CODE_SHA256) != CODE_SHA256:
+                # mixing the numbers of two versions would not equal either run: keep the parts, refuse
+                raise InputError(
+                    f"{parts} was computed by another version of sweep ({man.get('sweep_version')}, code"
+                    f" {str(man.get('code_sha256'))[:12]}...); finish it with that version, or remove that"
+                    " folder (or choose another -o) to start again with this one",
+                    file=config.source,
+                )
             log(f"resuming from {parts.name}")
             return man
         # the parts stay: each is checked against the new manifest (hash, range, grid, kept loci)
@@ -618,6 +636,7 @@ def _manifest(config: Config, out: Path, parts: Path, variants: Variants, log: _
         "chunk_size": int(config.sweep.chunk_size),
         "chunks": math.ceil(variants.count / config.sweep.chunk_size),
         "sweep_version": __version__,
+        "code_sha256": CODE_SHA256,
         "gains": [float(g) for g in gains],  # json writes repr(float): exact round trip
         "kept": [int(i) for i in np.flatnonzero(mask)],
     }

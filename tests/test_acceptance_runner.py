@@ -273,14 +273,20 @@ def test_every_kind_of_damaged_part_is_computed_again(tmp_path, reference):
     xr.testing.assert_identical(load(out), reference)
 
 
-def test_part_computed_by_other_code_is_computed_again(tmp_path, reference, monkeypatch):
-    """Parts record the code that computed them: after an upgrade (or an edit of an installed
-    copy) a resumed run recomputes the old parts and still equals an uninterrupted run."""
+def test_parts_of_other_code_are_refused_and_kept(tmp_path, reference, monkeypatch):
+    """Parts record the code that computed them: after an upgrade (or an edit of an installed copy)
+    the run is refused with its parts kept, since a mix of two versions equals neither run;
+    a stray part of other code (its manifest lost) is computed again."""
     cfg = load_config(write_config(tmp_path))
     out = tmp_path / "v.nc"
     monkeypatch.setattr(runner, "CODE_SHA256", "0" * 64)  # the code before the upgrade
     _stopped_before_merge(cfg, out)
     monkeypatch.undo()
+    before = sorted((tmp_path / "v.nc.parts").iterdir())
+    with pytest.raises(InputError, match="another version of sweep.*finish it with that version"):
+        runner.run(cfg, out=out, jobs=1, quiet=True)
+    assert sorted((tmp_path / "v.nc.parts").iterdir()) == before
+    (tmp_path / "v.nc.parts" / "manifest.json").unlink()
     runner.run(cfg, out=out, jobs=1, quiet=True)
     log = (tmp_path / "v.nc.log").read_text()
     assert "chunk 0: chunk-00000.nc: computed by another version of sweep" in log
