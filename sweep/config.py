@@ -158,8 +158,8 @@ class _Reader:
     def known_keys(self, data: dict, allowed: tuple[str, ...], prefix: str) -> None:
         for key in data:
             if key not in allowed:
-                where = f"{prefix}.{key}" if prefix else key
-                raise self.fail(where, f"unknown key '{key}'; {_suggest(key, allowed)}")
+                where = f"{prefix}.{_cut(key)}" if prefix else _cut(key)
+                raise self.fail(where, f"unknown key '{_cut(key)}'; {_suggest(key, allowed)}")
 
     def number(self, value: Any, field_name: str, *, allow_inf: bool = False) -> float:
         if isinstance(value, str) and allow_inf and value.strip().lower() in ("inf", "+inf", "infinity"):
@@ -198,6 +198,11 @@ class _Reader:
         if bad is not None:
             raise self.fail(field_name, f"contains the control character {bad!r}; keep it on one line of plain text")
         return text
+
+
+def _cut(text: str, limit: int = 40) -> str:
+    """`text` cut to `limit` characters for a one-line message (a pasted blob must not come back whole)."""
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 def _show(value: Any, limit: int = 40) -> str:
@@ -316,7 +321,7 @@ def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
     units = r.label(spec.get("units", ""), f"{where}.units")
     dist = r.string(spec.get("dist", "uniform"), f"{where}.dist")
     if dist not in DISTRIBUTIONS:
-        raise r.fail(f"{where}.dist", f"unknown distribution '{dist}'; {_suggest(dist, DISTRIBUTIONS)}")
+        raise r.fail(f"{where}.dist", f"unknown distribution '{_cut(dist)}'; {_suggest(dist, DISTRIBUTIONS)}")
     has_tol = "tol" in spec
     has_bounds = "low" in spec or "high" in spec
     if has_tol and has_bounds:
@@ -438,7 +443,7 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
     sensor = _expression(r, loop.get("sensor", 1), "loop.sensor", known, allow_s=True)
     feedback = r.string(loop.get("feedback", "negative"), "loop.feedback")
     if feedback not in ("negative", "positive"):
-        raise r.fail("loop.feedback", f"unknown feedback '{feedback}'; expected negative or positive")
+        raise r.fail("loop.feedback", f"unknown feedback '{_cut(feedback)}'; expected negative or positive")
     gain_range = (0.0, math.inf)
     if "gain_range" in loop:
         g = loop["gain_range"]
@@ -473,7 +478,7 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
         for i, name in enumerate(d):
             name = r.string(name, f"sweep.designs[{i}]")
             if name not in DESIGNS:
-                raise r.fail(f"sweep.designs[{i}]", f"unknown design '{name}'; {_suggest(name, DESIGNS)}")
+                raise r.fail(f"sweep.designs[{i}]", f"unknown design '{_cut(name)}'; {_suggest(name, DESIGNS)}")
         if len(set(d)) != len(d):
             raise r.fail("sweep.designs", "a design is listed twice; list each once")
         designs = tuple(d)
@@ -550,7 +555,7 @@ def _field_at(lines: list[str], number: int) -> str:
     for line in lines[: number - 1]:
         m = _HEADER.match(line)
         if m:
-            table = re.sub(r"\s+", "", m.group(1)).replace('"', "").replace("'", "")
+            table = _cut(re.sub(r"\s+", "", m.group(1)).replace('"', "").replace("'", ""))
     line = lines[number - 1] if 0 < number <= len(lines) else ""
     m = _HEADER.match(line)
     if m:
@@ -559,7 +564,7 @@ def _field_at(lines: list[str], number: int) -> str:
     if not m:
         return ""
     key = re.sub(r"\s+", "", m.group(1))
-    return f"{table}.{key}" if table else key
+    return _cut(f"{table}.{key}" if table else key)
 
 
 def _toml_error(r: _Reader, text: str, exc: Exception) -> InputError:

@@ -46,6 +46,11 @@ def _swap(old: str, new: str) -> str:
 # (label, config text, text the one error line must contain: the field, often with the point of the message)
 BAD = [
     # typos in section and field names
+    ("pasted_blob_as_key", BASE + "[sweep]\n" + "x" * 5000 + " = 1\n", "sweep.xxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxx...: unknown key"),
+    ("pasted_blob_as_section", "[" + "x" * 5000 + "]\n" + BASE, "unknown key 'xxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxx...'"),
+    ("pasted_blob_as_design", BASE + '[sweep]\ndesigns = ["' + "x" * 5000 + '"]\n', "sweep.designs[0]: unknown design"),
+    ("pasted_blob_as_feedback", BASE + '[loop]\nfeedback = "' + "x" * 5000 + '"\n', "loop.feedback: unknown feedback"),
+    ("pasted_blob_unquoted", BASE + "x" * 5000 + " = \n", "line 8 (plant.xxxxxxxxxxxxxxxxxxxxxxxxxxxxxxx...): not valid TOML"),
     ("section_typo", BASE + '[lop]\nfeedback = "negative"\n', "lop: unknown key 'lop'; did you mean 'loop'?"),
     ("plant_field_typo", _swap("transfer =", "tranfer ="), "plant.tranfer: unknown key 'tranfer'; did you mean 'transfer'?"),
     ("parameter_field_typo", _swap("nominal = 2.0", "nominall = 2.0"), "parameters.a.nominall"),
