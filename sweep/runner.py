@@ -151,8 +151,11 @@ class _Log:
         self.path = path
 
     def __call__(self, text: str) -> None:
-        with open(self.path, "a", encoding="utf-8") as fh:
-            fh.write(f"{_now()} {text}\n")
+        try:
+            with open(self.path, "a", encoding="utf-8") as fh:
+                fh.write(f"{_now()} {text}\n")
+        except OSError:
+            pass  # a full disk must not hide the run's own error (or stop a run) behind the log's
 
 
 # ---------------------------------------------------------------- lock

@@ -193,6 +193,27 @@ def test_failure_in_the_last_step_is_logged(tmp_path, monkeypatch):
     assert files(tmp_path) == ["f.nc.log", "f.nc.parts", "kiln.toml"]
 
 
+def test_a_full_disk_does_not_hide_the_error_behind_the_log(tmp_path, monkeypatch):
+    """With the disk full the log cannot be written either: the run's own error still shows."""
+    real_open, real_publish = open, store._publish
+
+    def no_log(path, *args, **kwargs):
+        if str(path).endswith(".log"):
+            raise OSError(28, "No space left on device (log)")
+        return real_open(path, *args, **kwargs)
+
+    def publish(tmp, path):
+        if path.name == "f.nc":
+            raise OSError(28, "No space left on device (result)")
+        real_publish(tmp, path)
+
+    monkeypatch.setattr(runner, "open", no_log, raising=False)
+    monkeypatch.setattr(store, "_publish", publish)
+    with pytest.raises(OSError, match=r"\(result\)"):
+        runner.run(load_config(write_config(tmp_path)), out=tmp_path / "f.nc", jobs=1, quiet=True)
+    assert len(list((tmp_path / "f.nc.parts").glob("chunk-*.nc"))) == 6
+
+
 STEPS = [(runner, "nominal_gains", 1), (designs, "generate", 1), (runner, "_manifest", 1),
          (store, "write_part", 3), (store.ResultWriter, "add", 4), (store.ResultWriter, "finish", 1),
          (store, "_publish", 6), (runner, "_remove_tree", 1)]
