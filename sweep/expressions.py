@@ -519,12 +519,12 @@ def _check_s(node: Node) -> None:
         return
     if isinstance(node, Power):
         if has_s(node.exponent):
-            raise _err(f"'s' in an exponent is not allowed (in '{to_text(node)}')")
+            raise _err(f"'s' in an exponent is not allowed (in '{_short(to_text(node))}')")
         if has_s(node.base):
             n = _literal_int(node.exponent)
             if n is None:
                 raise _err(
-                    f"a power of an expression in s needs a literal integer exponent, found '{to_text(node.exponent)}'"
+                    f"a power of an expression in s needs a literal integer exponent, found '{_short(to_text(node.exponent))}'"
                 )
             if abs(n) > MAX_S_POWER:
                 raise _err(f"exponent {n} on an expression in s is too large (at most {MAX_S_POWER})")

@@ -122,6 +122,8 @@ BAD = [
     ("s_power_1000", _swap(T, 'transfer = "1/s^1000"'), "plant.transfer: exponent 1000 on an expression in s is too large"),
     ("s_power_of_power", _swap(T, 'transfer = "1/(((s + 1)^64)^64)^64"'), "plant.transfer: the expression can reach degree 262144 in s"),
     ("s_powers_multiplied", BASE + '[loop]\nsensor = "1/((s + 1)^60*(s + 2)^60*(s + 3)^60*(s + 4)^60)"\n', "loop.sensor: the expression can reach degree 240"),
+    ("s_in_long_exponent", _swap("(s + a)", "(s + 2^(s" + " + a" * 200 + "))"), "plant.transfer: 's' in an exponent is not allowed (in '2^(s + a + a + a + a + a + a + a + a ...')"),
+    ("long_real_exponent_of_s", _swap("(s + a)", "(s + s^(a" + " + a" * 200 + "))"), "needs a literal integer exponent, found 'a + a + a"),
     ("s_power_real", _swap(T, 'transfer = "1/s^1.5"'), "plant.transfer: a power of an expression in s needs a literal integer exponent"),
     ("parameter_power_overflows", _swap("(s + a)", "(s + a^1000)"), "plant.transfer: the plant has a pole of size 1.07e+301"),
     ("nesting_500", _swap("(s + a)", "(s + " + "(" * 500 + "a" + ")" * 500 + ")"), "plant.transfer: expression is nested too deeply"),
