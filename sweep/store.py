@@ -362,7 +362,8 @@ def result_attrs(config, *, created: str, sweep_version: str) -> dict[str, str |
         "title": config.title,
         "config": config.text,
         "config_sha256": config.sha256,
-        "seed": int(config.sweep.seed),
+        # netCDF attributes hold 64-bit integers at most: a larger seed is kept, as its digits
+        "seed": seed if -2**63 <= (seed := int(config.sweep.seed)) < 2**63 else str(seed),
         "designs": ", ".join(config.sweep.designs),
         "feedback": config.feedback,
         "created": created,

@@ -323,6 +323,16 @@ MANY_DESIGNS = CONFIG.replace('designs = ["nominal", "corners", "random"]',
     "samples = 21", "samples = 6\nlevels = 2").replace('keep = "corners"', 'keep = "random:100"')
 
 
+def test_seed_above_64_bits_is_stored(tmp_path):
+    """TOML integers may exceed what a netCDF attribute holds: the seed is kept as its digits
+    (it failed only when the finished result was written)."""
+    seed = 2**70 + 1
+    out = runner.run(load_config(write_config(tmp_path, CONFIG.replace("seed = 5", f"seed = {seed}"))),
+                     out=tmp_path / "s.nc", jobs=1, quiet=True)
+    with xr.open_dataset(out) as ds:
+        assert ds.attrs["seed"] == str(seed)
+
+
 def test_results_do_not_depend_on_the_chunking(tmp_path):
     """One variant per chunk, a count that is not a multiple of the chunk, one chunk larger than
     the run: every variable equal bit for bit (the mean of the envelope to rounding)."""
