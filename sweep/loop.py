@@ -327,8 +327,18 @@ def _short(text: str, limit: int = 60) -> str:
     return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
+# a message lists at most this many parameters (it must stay one readable line)
+_LISTED = 4
+
+
 def _where(names: list[str], x: np.ndarray) -> str:
-    return ", ".join(f"{nm}={v:.6g}" for nm, v in zip(names, x))
+    text = ", ".join(f"{nm}={v:.6g}" for nm, v in list(zip(names, x))[:_LISTED])
+    return text + (f" (and {len(names) - _LISTED} more)" if len(names) > _LISTED else "")
+
+
+def _names(names: list[str]) -> str:
+    text = ", ".join(names[:_LISTED])
+    return text + (f" and {len(names) - _LISTED} more" if len(names) > _LISTED else "")
 
 
 def _prove(
@@ -459,12 +469,12 @@ def _check_guard(config: Config, field_name: str, kind: str, guard: Any, role: s
             v = float(np.asarray(expressions.evaluate(guard, _point_env(config, names, x[None, :])), dtype=float).reshape(-1)[0])
         raise InputError(
             f"'{text}' ({role}) must {needs}, but it is {v:.6g} at {_where(names, x)} inside the tolerance box "
-            f"({v0:.6g} at the nominal); narrow the tolerances of {', '.join(names)} or restate the expression",
+            f"({v0:.6g} at the nominal); narrow the tolerances of {_names(names)} or restate the expression",
             file=config.source, field=field_name,
         )
     raise InputError(
         f"cannot show that '{text}' ({role}) stays clear over the tolerance box: it must {needs}, and the interval "
-        f"bounds stay inconclusive near {_where(names, x)}; narrow the tolerances of {', '.join(names)} or restate the expression",
+        f"bounds stay inconclusive near {_where(names, x)}; narrow the tolerances of {_names(names)} or restate the expression",
         file=config.source, field=field_name,
     )
 
@@ -523,7 +533,7 @@ def _check_leading(config: Config, part: _Part, dm: int, dn: int) -> None:
         raise InputError(
             f"cannot show that the {part.label}'s leading coefficients keep their sign over the tolerance box "
             f"(interval bounds stay inconclusive near {_where(names, x)}); narrow the tolerances of "
-            f"{', '.join(names)} or restate the expression",
+            f"{_names(names)} or restate the expression",
             file=config.source, field=part.field,
         )
     pn, pd, extra, finite = points(x[None, :])
@@ -542,7 +552,7 @@ def _check_leading(config: Config, part: _Part, dm: int, dn: int) -> None:
         raise InputError(
             f"the {part.label}'s order changes inside the tolerance box: its {which} has a coefficient above "
             f"s^{deg} that is 0 at the nominal but not at {where}; restate the model so the nominal has the full "
-            f"order, or narrow the tolerances of {', '.join(names)}",
+            f"order, or narrow the tolerances of {_names(names)}",
             file=config.source, field=part.field,
         )
     is_den = np.sign(pd[0]) != signs[1]
@@ -555,7 +565,7 @@ def _check_leading(config: Config, part: _Part, dm: int, dn: int) -> None:
     raise InputError(
         f"the {part.label}'s {which} leading coefficient (of s^{deg}) is {c0:.6g} at the nominal but {c:.6g} at "
         f"{where}: it reaches 0 or changes sign inside the tolerance box, so {effect}; narrow the tolerances of "
-        f"{', '.join(names)} or restate the model",
+        f"{_names(names)} or restate the model",
         file=config.source, field=field_name,
     )
 

@@ -594,3 +594,15 @@ def test_any_garbage_is_input_error_or_a_config(transfer: str, spec: dict, contr
         except InputError as exc:
             line = exc.line()
             assert "\n" not in line and line.startswith("fuzz.toml: ")
+
+
+def test_messages_list_few_parameters():
+    # forty long names in one leading coefficient: the message names four and counts the rest
+    names = [f"p{i:02d}_winding_resistance_of_the_stage" for i in range(40)]
+    text = "[parameters]\n" + "\n".join(f"{n} = {{ nominal = 1, tol = '10%' }}" for n in names)
+    text += f'\n[plant]\ntransfer = "1/(s*((({" + ".join(names)}) - 40)*s + 1))"\n'
+    with pytest.raises(InputError) as info:
+        parse_config(text, source="stages.toml")
+    line = info.value.line()
+    assert "(and 36 more)" in line and "and 36 more" in line.split("tolerances of")[1]
+    assert len(line) < 700
