@@ -469,7 +469,9 @@ def check(node: Node, known: Any, *, allow_s: bool) -> None:
             if close:
                 hint = f"did you mean '{close[0]}'? (or define '{_short(nm)}' as a parameter)"
             elif known:
-                hint = f"define it as a parameter or correct the spelling (known names: {', '.join(sorted(known))})"
+                shown = sorted(known)[:8]  # the message stays one readable line
+                more = f" and {len(known) - 8} more" if len(known) > 8 else ""
+                hint = f"define it as a parameter or correct the spelling (known names: {', '.join(shown)}{more})"
             else:
                 hint = "no parameters are defined; define it as a parameter"
             raise _err(f"unknown name '{_short(nm)}'; {hint}")

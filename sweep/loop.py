@@ -646,7 +646,7 @@ def _warn_unused(config: Config) -> None:
     if unused:
         warnings.warn(
             UnusedParameterWarning(
-                f"{config.source}: parameter(s) {', '.join(unused)} appear in no expression of the loop; "
+                f"{config.source}: parameter(s) {_names(unused)} appear in no expression of the loop; "
                 "their tolerance only multiplies the corners and grid points; use them or remove them"
             ),
             stacklevel=2,
