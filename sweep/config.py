@@ -207,8 +207,7 @@ def _cut(text: str, limit: int = 40) -> str:
 
 def _show(value: Any, limit: int = 40) -> str:
     """repr of a value (dates as written in TOML), cut to `limit` characters for a one-line message."""
-    text = value.isoformat() if hasattr(value, "isoformat") else repr(value)
-    return text if len(text) <= limit else text[: limit - 3] + "..."
+    return _cut(value.isoformat() if hasattr(value, "isoformat") else repr(value), limit)
 
 
 def _kind(value: Any) -> str:
@@ -246,8 +245,8 @@ def _tolerance(r: _Reader, value: Any, nominal: float, field_name: str) -> tuple
         return minus, plus
     if isinstance(value, str):
         m = _SPLIT_TOL.fullmatch(value)
-        if m and "%" in value:
-            s1, a, pct1, s2, b = m.groups()
+        if m:
+            s1, a, _, s2, b = m.groups()
             if s1 == s2:
                 raise r.fail(field_name, f"tolerance {_show(value)} gives two {'minus' if s1 == '-' else 'plus'} sides; "
                                          "write it as \"-20%/+80%\" or [\"20%\", \"80%\"] (minus first)")
@@ -301,7 +300,7 @@ def _one_tolerance(r: _Reader, value: Any, nominal: float, field_name: str, side
 def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
     where = f"parameters.{name}"
     if len(name) > MAX_NAME:  # names become netCDF variables and plot labels
-        raise r.fail(f"parameters.{_show(name, 20)}", f"a parameter name of {len(name)} characters is too long (at most {MAX_NAME}); use a short name and put the description in a comment")
+        raise r.fail(f"parameters.{_cut(name, 20)}", f"a parameter name of {len(name)} characters is too long (at most {MAX_NAME}); use a short name and put the description in a comment")
     if not _NAME_RE.match(name):
         raise r.fail(where, f"parameter name {_show(name)} must start with a letter and use only letters, digits and _ (ASCII)")
     if name in _RESERVED_NAMES:
