@@ -91,9 +91,10 @@ RESERVED = {
 }
 
 
-# the modules whose code decides a part's numbers (config to assembled loop, analysis, locus, part files)
-_COMPUTING_MODULES = ("config", "expressions", "intervals", "polynomials", "loop", "rootfind", "routh",
-                      "analysis", "_analysis_kernel", "locus", "_locus_kernel", "store", "runner")
+# the modules whose code decides a part's numbers (the loop's coefficients, the analysis, the locus); a
+# part's layout is checked on its own (`store.check_layout`)
+_COMPUTING_MODULES = ("expressions", "polynomials", "loop", "rootfind", "routh", "analysis", "_analysis_kernel",
+                      "locus", "_locus_kernel")
 
 
 def _code_sha256() -> str:
