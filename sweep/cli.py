@@ -65,12 +65,13 @@ def build_parser() -> argparse.ArgumentParser:
                               "limits - critical gain against each uncertain parameter; "
                               "envelope - largest real part of the closed-loop roots against gain, min..max over all variants; "
                               "crossings - histograms of the critical gain and the crossing frequency; "
-                              "plane - smallest critical gain on a grid of two parameters (--params A B, needs the grid design).")
+                              "plane - smallest critical gain on a grid of two parameters (needs the grid design; --params A B "
+                              "picks them, by default the only two uncertain ones).")
     p.add_argument("result", metavar="RESULT", help="result .nc file written by 'sweep run'")
     p.add_argument("--what", required=True, choices=["locus", "limits", "envelope", "crossings", "plane"],
                    help="which view to draw")
     p.add_argument("-o", "--out", metavar="FILE", help="image file (default: RESULT stem + '-WHAT.png')")
-    p.add_argument("--params", nargs=2, metavar=("A", "B"), help="the two parameters of --what plane")
+    p.add_argument("--params", nargs=2, metavar=("A", "B"), help="the two parameters of --what plane (default: the only two uncertain parameters)")
 
     p = sub.add_parser("certify", help="guaranteed bounds on the worst-case critical gain",
                        description="Bound the worst-case critical gain over the whole tolerance box: exactly by Kharitonov's theorem for interval families, else by branch-and-bound with interval arithmetic.")
