@@ -674,10 +674,12 @@ def _part_path(parts: Path, i: int) -> Path:
     return parts / f"chunk-{i:05d}.nc"
 
 
-def _resume_command(config: Config, out: Path) -> str:
+def _resume_command(config: Config, out: Path, jobs: int | None = None, scheduler: str | None = None) -> str:
+    """The command line that continues the run (with its ``-j`` or ``--scheduler`` when they were given)."""
     import shlex
 
-    return f"sweep run {shlex.quote(str(config.source))} -o {shlex.quote(str(out))} --resume"
+    how = f" --scheduler {shlex.quote(scheduler)}" if scheduler else f" -j {jobs}" if jobs is not None else ""
+    return f"sweep run {shlex.quote(str(config.source))} -o {shlex.quote(str(out))}{how} --resume"
 
 
 # ---------------------------------------------------------------- execution
@@ -958,6 +960,7 @@ def run(
         _check_scheduler(scheduler)
     out = _output_path(config, out)
     size = int(config.sweep.chunk_size)
+    again = _resume_command(config, out, None if jobs is None else max(1, int(jobs)), scheduler)
     jobs = _cpu_count() if jobs is None else max(1, int(jobs))
     parts = out.with_name(out.name + ".parts")
     log = _Log(out.with_name(out.name + ".log"))
@@ -976,20 +979,20 @@ def run(
         except KeyboardInterrupt:
             kept = _parts_kept(parts)
             log(f"interrupted; {kept} chunks kept")
-            raise Interrupted(f"interrupted; {kept} chunks kept", _resume_command(config, out)) from None
+            raise Interrupted(f"interrupted; {kept} chunks kept", again) from None
         except BrokenProcessPool as err:
             # a worker killed from outside (out of memory, kill -9) has no error of its own to show
             kept = _parts_kept(parts)
             log(f"failed: a worker process died ({type(err).__name__}); {kept} chunks kept")
             raise SweepError(f"a worker process died without an error of its own (killed from outside, e.g. when"
-                             f" memory ran out); {kept} chunks kept; resume with: {_resume_command(config, out)}"
+                             f" memory ran out); {kept} chunks kept; resume with: {again}"
                              ) from None
         except BaseException as err:
             log(f"failed: {type(err).__name__}: {' '.join(str(err).split())}; {_parts_kept(parts)} chunks kept")
             if type(err).__name__ == "KilledWorker" and type(err).__module__.startswith("distributed"):
                 # Dask gave up on a chunk whose workers all died (no error of their own to show)
                 raise SweepError(f"Dask workers died while computing a chunk ({' '.join(str(err).split()[:12])}"
-                                 f" ...); {_parts_kept(parts)} chunks kept; resume with: {_resume_command(config, out)}"
+                                 f" ...); {_parts_kept(parts)} chunks kept; resume with: {again}"
                                  ) from None
             raise
 

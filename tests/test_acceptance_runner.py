@@ -146,7 +146,7 @@ def test_worker_killed_from_outside(tmp_path, reference, monkeypatch):
     with pytest.raises(SweepError, match="worker process died") as info:
         runner.run(cfg, out=out, jobs=2, quiet=True)
     message = str(info.value)
-    assert "\n" not in message and runner._resume_command(cfg, out) in message
+    assert "\n" not in message and runner._resume_command(cfg, out, 2) in message
     log = (tmp_path / "w.nc.log").read_text()
     assert "failed: a worker process died" in log
     assert not out.exists() and not (tmp_path / "w.nc.lock").exists()
@@ -172,7 +172,7 @@ def test_dask_workers_dying_stop_the_run_with_the_resume_command(tmp_path, monke
     out = tmp_path / "d.nc"
     with pytest.raises(SweepError, match="Dask workers died") as info:
         runner.run(cfg, out=out, scheduler="tcp://127.0.0.1:8786", quiet=True)
-    assert "\n" not in str(info.value) and str(info.value).endswith(runner._resume_command(cfg, out))
+    assert "\n" not in str(info.value) and str(info.value).endswith(runner._resume_command(cfg, out, None, "tcp://127.0.0.1:8786"))
     assert "1 chunks kept" in str(info.value) and "failed: KilledWorker" in (tmp_path / "d.nc.log").read_text()
     assert not (tmp_path / "d.nc.lock").exists()
 
@@ -236,7 +236,8 @@ def test_ctrl_c_at_any_step(tmp_path, reference, monkeypatch, obj, name, nth):
     monkeypatch.setattr(obj, name, interrupted)
     with pytest.raises(runner.Interrupted) as info:
         runner.run(cfg, out=out, jobs=1, quiet=True)
-    assert info.value.resume_command == runner._resume_command(cfg, out)
+    assert info.value.resume_command == runner._resume_command(cfg, out, 1)
+    assert info.value.resume_command.endswith(f"-o {out} -j 1 --resume")
     assert "interrupted;" in (tmp_path / "c.nc.log").read_text()
     assert not (tmp_path / "c.nc.lock").exists()
     monkeypatch.undo()
