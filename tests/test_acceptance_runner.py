@@ -102,6 +102,21 @@ def test_lock_damaged_or_of_a_reused_pid_is_stale(tmp_path):
     assert files(tmp_path) == ["kiln.toml", "l.nc", "l.nc.log"]
 
 
+def test_killed_after_publishing_before_unlocking(tmp_path):
+    """Killed between the result's rename and the lock's removal: the rerun takes the stale lock
+    over and returns the complete result untouched."""
+    cfg = load_config(write_config(tmp_path))
+    out = runner.run(cfg, out=tmp_path / "u.nc", jobs=1, quiet=True)
+    stamp = out.stat().st_mtime_ns
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    (tmp_path / "u.nc.lock").write_text(json.dumps({"pid": dead.pid, "proc_start": "1", "started": "then"}))
+    assert runner.run(cfg, out=out, jobs=1, quiet=True) == out and out.stat().st_mtime_ns == stamp
+    log = (tmp_path / "u.nc.log").read_text()
+    assert f"taking over stale lock of pid {dead.pid}" in log and "already complete" in log
+    assert files(tmp_path) == ["kiln.toml", "u.nc", "u.nc.log"]
+
+
 def test_lock_appears_with_its_contents(tmp_path, monkeypatch):
     """A second run never sees an empty lock of a live run (which it would take for a stale one)."""
     seen = []
