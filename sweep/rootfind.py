@@ -55,7 +55,8 @@ def _balance(a) -> None:
                 if j != i:
                     c += abs(a[j, i])
                     r += abs(a[i, j])
-            if c != 0.0 and r != 0.0:
+            # an inf norm would never balance (inf / 4 stays inf): leave such rows
+            if c != 0.0 and r != 0.0 and c < np.inf and r < np.inf:
                 g = r / radix
                 f = 1.0
                 s = c + r
@@ -221,8 +222,8 @@ def companion_roots(c, out, work, wr, wi, max_its: int) -> bool:
     ``(d, d)``), ``wr``, ``wi`` (at least ``d``) are caller-owned scratch so
     that a kernel calling this in a loop allocates nothing. Trailing zero
     coefficients give exact zero roots (placed last). Returns False when
-    the QR iteration did not converge or a coefficient is not finite; ``out``
-    is then NaN.
+    the QR iteration did not converge, a coefficient is not finite or a
+    coefficient ratio of the companion matrix overflows; ``out`` is then NaN.
     """
     d = c.shape[0] - 1
     for j in range(d + 1):
@@ -251,6 +252,13 @@ def companion_roots(c, out, work, wr, wi, max_its: int) -> bool:
         a[0, j] = -c[j + 1] * inv
     for j in range(e - 1):
         a[j + 1, j] = 1.0
+    for j in range(e):
+        if not math.isfinite(a[0, j]):
+            # a coefficient ratio overflows: the companion matrix cannot hold
+            # this polynomial (the caller must scale s first)
+            for i in range(d):
+                out[i] = complex(math.nan, math.nan)
+            return False
     _balance(a)
     if not _hessenberg_qr(a, wr, wi, max_its):
         for i in range(d):
@@ -302,7 +310,8 @@ def poly_roots(C, degrees=None, *, max_its: int = MAX_QR_ITERATIONS) -> np.ndarr
         complex128 ``(V, d)``; row ``v`` holds its ``e`` roots first (in no
         particular order) and NaN in the last ``d - e`` slots. Rows where
         the compiled iteration fails are computed by `numpy.linalg.eigvals`
-        on the companion matrix instead.
+        on the companion matrix instead; rows whose companion matrix
+        overflows (a coefficient ratio beyond the float range) stay NaN.
 
     Examples
     --------
@@ -339,7 +348,9 @@ def _lapack_roots(C: np.ndarray, degrees: np.ndarray, d: int) -> np.ndarray:
             fin = np.all(np.isfinite(c), axis=1)
             rows, c = rows[fin], c[fin]
         M = np.zeros((rows.size, e, e))
-        M[:, 0, :] = -c[:, 1:] / c[:, :1]
+        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+            M[:, 0, :] = -c[:, 1:] / c[:, :1]
         M[:, np.arange(1, e), np.arange(e - 1)] = 1.0
-        out[rows, :e] = np.linalg.eigvals(M)
+        fin = np.all(np.isfinite(M[:, 0, :]), axis=1)  # an overflowing ratio stays NaN
+        out[rows[fin], :e] = np.linalg.eigvals(M[fin])
     return out

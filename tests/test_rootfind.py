@@ -120,3 +120,14 @@ def test_batched_equals_one_at_a_time():
     r = poly_roots(C)
     for i in range(C.shape[0]):
         assert np.array_equal(poly_roots(C[i:i + 1])[0], r[i])
+
+
+def test_overflowing_companion_gives_nan_without_hanging():
+    # 1e-160 s^2 + s + 1.4e157: the ratio 1.4e157 / 1e-160 overflows, so the
+    # companion matrix holds inf; balancing it used to loop forever
+    r = poly_roots(np.array([[1e-160, 1.0, 1.41421356e157], [1.0, -3.0, 2.0]]))
+    assert np.all(np.isnan(r[0]))
+    np.testing.assert_allclose(np.sort(r[1].real), [1.0, 2.0])
+    # the LAPACK fall-back (forced by allowing no QR iteration) leaves it NaN too
+    r = poly_roots(np.array([[1e-160, 1.0, 1.41421356e157]]), max_its=0)
+    assert np.all(np.isnan(r[0]))
