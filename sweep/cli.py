@@ -142,11 +142,45 @@ def main(argv: Sequence[str] | None = None) -> int:
 # ---------------------------------------------------------------------------
 
 
+_KERNEL_MODULES = ("_analysis_kernel", "rootfind", "_locus_kernel")
+
+
+def _kernel_cache_is_cold(folder: str, modules: Sequence[str] = _KERNEL_MODULES) -> bool:
+    """Whether numba's cache in ``folder`` lacks one of ``modules``' compiled kernels.
+
+    False when ``folder`` is not writable: numba then caches elsewhere and we
+    cannot tell.
+    """
+    try:
+        if not os.access(folder, os.W_OK):
+            return False
+        files = os.listdir(folder)
+    except OSError:
+        return False
+    return not all(any(f.startswith(m + ".") and f.endswith(".nbi") for f in files) for m in modules)
+
+
+def _say_if_compiling(args: argparse.Namespace) -> None:
+    """On the first use after installing, say why the command waits before its first result.
+
+    numba compiles the numeric kernels once and keeps them in
+    ``sweep/__pycache__``; until then a command spends its first seconds
+    compiling.
+    """
+    if getattr(args, "quiet", False):
+        return
+    folder = os.path.join(os.path.dirname(os.path.abspath(__file__)), "__pycache__")
+    modules = _KERNEL_MODULES if args.command in ("run", "bench") else _KERNEL_MODULES[:2]
+    if _kernel_cache_is_cold(folder, modules):
+        print("first use after installing: compiling the numeric kernels once (about 15 s on an idle "
+              "2-core machine; later commands load them from the cache)", file=sys.stderr)
+
 def _cmd_check(args: argparse.Namespace) -> int:
     from . import report
     from .config import load_config
 
     config = load_config(args.config)
+    _say_if_compiling(args)
     summary = report.check_summary(config)
     if args.json:
         from .jsonutil import dumps
@@ -165,6 +199,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
     if args.jobs is not None and args.jobs < 1:
         raise InputError(f"must be at least 1, got {args.jobs}", field="-j")
+    _say_if_compiling(args)
     try:
         path = runner.run(config, out=args.out, jobs=args.jobs, resume=args.resume,
                           scheduler=args.scheduler, quiet=args.quiet)
@@ -236,6 +271,7 @@ def _cmd_certify(args: argparse.Namespace) -> int:
     if not (args.max_seconds > 0):
         raise InputError(f"must be a positive number of seconds, got {args.max_seconds:g}",
                          field="--max-seconds")
+    _say_if_compiling(args)
     bar = None
     progress = None
     if not args.quiet and not args.json:
@@ -275,6 +311,7 @@ def _cmd_bench(args: argparse.Namespace) -> int:
         from .config import load_config
 
         config = load_config(args.config)
+    _say_if_compiling(args)
     result = bench.measure(config)
     if args.json:
         from .jsonutil import dumps

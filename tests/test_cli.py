@@ -117,3 +117,13 @@ def test_check_without_parameters_and_debug_after_the_command(tmp_path: Path):
     proc = sweep("check", str(bad))
     assert proc.returncode == 2 and "Traceback" not in proc.stderr
     assert len(proc.stderr.strip().splitlines()) == 1 and "plant.transfer" in proc.stderr
+
+
+def test_first_use_notice_follows_numba_cache(tmp_path):
+    from sweep.cli import _kernel_cache_is_cold
+
+    assert _kernel_cache_is_cold(str(tmp_path))  # nothing compiled yet
+    for m in ("_analysis_kernel", "rootfind", "_locus_kernel"):
+        (tmp_path / f"{m}.kernel-10.py311.nbi").write_text("")
+    assert not _kernel_cache_is_cold(str(tmp_path))
+    assert not _kernel_cache_is_cold(str(tmp_path / "missing"))  # cannot tell: say nothing
