@@ -110,6 +110,8 @@ def breakaway_width(n: int, m: int) -> int:
     return max(2 * n - 2, 0)
 
 
+# s-plane units: real parts are decay rates (1/s), imaginary parts and
+# frequencies angular frequencies (rad/s), as for the locus variables.
 _A = {
     "critical_gain": ("critical gain (upper end of the stable interval holding the reference gain)", "1"),
     "critical_gain_low": ("lower end of the stable interval holding the reference gain", "1"),
@@ -123,22 +125,22 @@ _A = {
     "min_damping": ("smallest damping ratio of the closed-loop poles at the operating gain", "1"),
     "dominance_ratio": ("real part of the next-slowest closed-loop pole (or pair) over the slowest's", "1"),
     "second_order_ok": ("dominance ratio at least 10 (rule of thumb for a second-order approximation)", "1"),
-    "asymptote_centroid": ("centroid of the root-locus asymptotes", "rad/s"),
+    "asymptote_centroid": ("centroid of the root-locus asymptotes", "1/s"),
     "routh_agrees": ("Routh count agrees with the eigenvalue count at the reference gain (1/0)", "1"),
     "ill_conditioned": ("results of this variant could not be computed to full precision (1/0)", "1"),
     "fixed_axis_root": ("numerator and denominator share a root on the imaginary axis (1/0)", "1"),
     "boundary_gain": ("gain at which a closed-loop root is on the imaginary axis", "1"),
     "boundary_frequency": ("frequency of the imaginary-axis root at the boundary gain", "rad/s"),
     "stable_above": ("closed loop stable on the gain interval just above the boundary gain (1/0, -1 pad)", "1"),
-    "open_loop_pole_real": ("real part of the open-loop poles", "rad/s"),
+    "open_loop_pole_real": ("real part of the open-loop poles", "1/s"),
     "open_loop_pole_imag": ("imaginary part of the open-loop poles", "rad/s"),
     "departure_angle": ("direction in which the locus leaves a complex open-loop pole", "deg"),
-    "closed_loop_pole_real": ("real part of the closed-loop poles at the operating gain", "rad/s"),
+    "closed_loop_pole_real": ("real part of the closed-loop poles at the operating gain", "1/s"),
     "closed_loop_pole_imag": ("imaginary part of the closed-loop poles at the operating gain", "rad/s"),
-    "open_loop_zero_real": ("real part of the open-loop zeros", "rad/s"),
+    "open_loop_zero_real": ("real part of the open-loop zeros", "1/s"),
     "open_loop_zero_imag": ("imaginary part of the open-loop zeros", "rad/s"),
     "arrival_angle": ("direction, seen from a complex zero, of the locus branch arriving there", "deg"),
-    "breakaway_point": ("real breakaway or break-in point of the locus", "rad/s"),
+    "breakaway_point": ("real breakaway or break-in point of the locus", "1/s"),
     "breakaway_gain": ("gain at the breakaway or break-in point", "1"),
 }
 
