@@ -17,21 +17,9 @@ import sympy as sp
 from sweep.analysis import analyze, analyze_stack
 from sweep.errors import InputError
 from test_analysis import _angle_sum_arrival, _angle_sum_departure, _canonical, _close, sympy_reference
+from test_locus import pair, poly
 
 INF = math.inf
-
-
-def poly(*factors):
-    """Product of coefficient lists (highest power first)."""
-    out = np.array([1.0])
-    for f in factors:
-        out = np.convolve(out, np.asarray(f, dtype=float))
-    return out
-
-
-def pair(re, im):
-    """(s - re - j im)(s - re + j im)."""
-    return [1.0, -2 * re, re * re + im * im]
 
 
 # seven lags from 1e4 s down to 1e-3 s: coefficient spread far beyond 1e12
