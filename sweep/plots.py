@@ -1207,7 +1207,7 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> xr.DataArray:
                          + "; add \"grid\" to [sweep] designs with two or more toleranced "
                          "parameters, or use --what "
                          + ("limits or crossings" if uncertain else "envelope, crossings or locus"),
-                         field="params")
+                         field="--params")
     if "grid" not in present:
         raise InputError("plot 'plane' uses the grid design, which this result lacks (designs: "
                          f"{', '.join(present)}); add \"grid\" to [sweep] designs (levels = 5 or so) "
@@ -1217,17 +1217,17 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> xr.DataArray:
     if params is None or len(params) != 2:
         raise InputError("plot 'plane' needs exactly two parameters, e.g. --params "
                          f"{' '.join(uncertain[:2])} (uncertain parameters: {', '.join(uncertain)})",
-                         field="params")
+                         field="--params")
     a, b = (str(p) for p in params)
     if a == b:
         raise InputError(f"plot 'plane': the two parameters must differ (got {a} twice)",
-                         field="params")
+                         field="--params")
     known = query.parameter_names(ds)
     for p in (a, b):
         if p not in known:
             close = difflib.get_close_matches(p, known, n=1, cutoff=0.5)
             hint = f"; did you mean '{close[0]}'?" if close else f"; parameters: {', '.join(known)}"
-            raise InputError(f"plot 'plane': no parameter '{p}' in the result{hint}", field="params")
+            raise InputError(f"plot 'plane': no parameter '{p}' in the result{hint}", field="--params")
     m = design == "grid"
     crit, unstable = _crit_for_plot(ds)
     xa = np.asarray(ds[a].values, float)[m]
@@ -1235,7 +1235,7 @@ def plane_table(ds: xr.Dataset, params: Sequence[str] | None) -> xr.DataArray:
     for p, x in ((a, xa), (b, xb)):
         if np.ptp(x) == 0:
             raise InputError(f"plot 'plane': parameter '{p}' does not vary over the grid design "
-                             f"(it is fixed); choose among {', '.join(uncertain)}", field="params")
+                             f"(it is fixed); choose among {', '.join(uncertain)}", field="--params")
     la, ia = np.unique(xa, return_inverse=True)
     lb, ib = np.unique(xb, return_inverse=True)
     y = crit[m]
