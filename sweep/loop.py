@@ -19,7 +19,7 @@ from .config import Config
 from .errors import InputError
 from .intervals import Interval
 from .polynomials import Rational
-from .warnings import CancellationWarning, UnusedParameterWarning
+from .warnings import CancellationWarning, NothingKeptWarning, UnusedParameterWarning
 
 # How hard `validate` tries to prove that a leading coefficient keeps its sign.
 _MAX_BOXES = 4096
@@ -301,6 +301,7 @@ def validate(config: Config) -> None:
 
     _warn_cancellation(config)
     _warn_unused(config)
+    _warn_nothing_kept(config)
 
 
 def _largest_root(coefs: np.ndarray) -> float:
@@ -652,6 +653,18 @@ def _warn_unused(config: Config) -> None:
             stacklevel=2,
         )
 
+
+def _warn_nothing_kept(config: Config) -> None:
+    """Warn when ``keep = "corners"`` meets designs without corners or the nominal: no locus would be stored."""
+    if config.locus.keep == "corners" and not {"corners", "nominal"} & set(config.sweep.designs):
+        warnings.warn(
+            NothingKeptWarning(
+                f"{config.source}: [locus] keep = \"corners\" stores the loci of the corners and the nominal, and "
+                "[sweep] designs has neither, so no locus will be stored; add \"nominal\" to designs or "
+                "keep \"random:N\""
+            ),
+            stacklevel=2,
+        )
 
 def _fmt_root(z: complex) -> str:
     if abs(z.imag) <= 1e-12 * max(1.0, abs(z)):

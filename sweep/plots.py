@@ -253,6 +253,15 @@ def _fmt(x: float | None) -> str:
 MAX_LOCUS_LINES = 1500  # more stored loci than this are thinned evenly (the spread stays visible)
 
 
+def _keep_setting(ds: xr.Dataset) -> str:
+    """``[locus] keep = "..."`` as the stored config gives it (for messages)."""
+    try:
+        locus = query.stored_config(ds).locus
+        keep = f"random:{locus.keep_count}" if locus.keep == "random" else locus.keep
+        return f'[locus] keep = "{keep}"'
+    except Exception:  # noqa: BLE001 - only the wording of a message depends on it
+        return "[locus] keep"
+
 def _recomputed_loci(ds: xr.Dataset, indices: Sequence[int], gains: np.ndarray) -> dict[int, np.ndarray]:
     """Loci of a few variants whose loci the sweep did not keep, from the stored config.
 
@@ -263,11 +272,10 @@ def _recomputed_loci(ds: xr.Dataset, indices: Sequence[int], gains: np.ndarray) 
     if not text or not indices:
         return {}
     try:
-        from .config import parse_config
         from .locus import trace
         from .loop import assemble
 
-        cfg = parse_config(str(text), source="<result file>")
+        cfg = query.stored_config(ds)
         values = {p.name: np.asarray(ds[p.name].values[list(indices)], float) for p in cfg.parameters}
         N, D = assemble(cfg, values, count=len(indices))
         roots = trace(N, D, sigma=cfg.sigma, gains=gains)
@@ -350,9 +358,9 @@ def locus_figure(ds: xr.Dataset, *, dpi: float | None = None):
     _need(ds, ("locus_real", "locus_imag"), "locus",
           "the sweep stored no loci: set [locus] keep to \"corners\", \"all\" or \"random:N\" and rerun")
     if ds.sizes.get("locus_variant", 0) == 0:
-        raise InputError("plot 'locus': no variant's locus is stored ([locus] keep = \"none\"); set "
-                         "keep to \"corners\", \"all\" or \"random:N\" and rerun 'sweep run'",
-                         field="locus.keep")
+        raise InputError(f"plot 'locus': no variant's locus is stored ({_keep_setting(ds)} selects none of this "
+                         "result's variants); set keep to \"all\" or \"random:N\" (\"corners\" keeps the corners "
+                         "and the nominal) and rerun 'sweep run'", field="locus.keep")
     plt = _plt()
     from matplotlib.collections import LineCollection
     from matplotlib.lines import Line2D

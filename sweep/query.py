@@ -84,6 +84,25 @@ def uncertain_names(ds: xr.Dataset) -> list[str]:
     return out
 
 
+def stored_config(ds: xr.Dataset):
+    """The `~sweep.config.Config` of the TOML text stored in a result, or None without one.
+
+    The config's own warnings (an unused parameter, a cancellation, ...) were
+    shown when the sweep ran; reading a result does not repeat them. Errors
+    of the stored text propagate to the caller.
+    """
+    import warnings
+
+    from .config import parse_config
+    from .warnings import SweepWarning
+
+    text = ds.attrs.get("config")
+    if not text:
+        return None
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", SweepWarning)
+        return parse_config(str(text), source="<result file>")
+
 def reference_gain(ds: xr.Dataset) -> float:
     """The reference gain of the sweep.
 
@@ -103,12 +122,9 @@ def reference_gain(ds: xr.Dataset) -> float:
     for key in ("reference_gain", "operating_gain"):
         if key in ds.attrs:
             return float(ds.attrs[key])
-    text = ds.attrs.get("config")
-    if text:
+    if ds.attrs.get("config"):
         try:
-            from .config import parse_config
-
-            cfg = parse_config(str(text), source="<result file>")
+            cfg = stored_config(ds)
         except Exception as exc:  # noqa: BLE001 - report as bad input below
             raise InputError(f"the stored config cannot be read ({exc}); rerun 'sweep run'",
                              field="config") from None
@@ -136,12 +152,9 @@ def operating_gain(ds: xr.Dataset) -> float | None:
         return None if math.isnan(g) else g
     if "reference_gain" in ds.attrs:
         return None
-    text = ds.attrs.get("config")
-    if text:
+    if ds.attrs.get("config"):
         try:
-            from .config import parse_config
-
-            cfg = parse_config(str(text), source="<result file>")
+            cfg = stored_config(ds)
             return None if cfg.operating_gain is None else float(cfg.operating_gain)
         except Exception:  # noqa: BLE001 - no operating gain known
             return None
@@ -161,14 +174,11 @@ def gain_range(ds: xr.Dataset) -> tuple[float, float] | None:
     tuple of float or None
         ``(low, high)``; ``high`` may be ``inf``.
     """
-    text = ds.attrs.get("config")
-    if not text:
-        return None
     try:
-        from .config import parse_config
-
-        cfg = parse_config(str(text), source="<result file>")
+        cfg = stored_config(ds)
     except Exception:  # noqa: BLE001 - the range is only used to word the report
+        return None
+    if cfg is None:
         return None
     return float(cfg.gain_range[0]), float(cfg.gain_range[1])
 

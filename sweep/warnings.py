@@ -15,3 +15,7 @@ class IllConditionedWarning(SweepWarning):
 
 class UnusedParameterWarning(SweepWarning):
     """An uncertain parameter appears in no expression of the loop."""
+
+
+class NothingKeptWarning(SweepWarning):
+    """The ``[locus] keep`` setting selects no variant of the configured designs."""

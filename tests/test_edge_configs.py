@@ -40,3 +40,40 @@ def test_run_without_parameters(tmp_path):
         assert ds.sizes["locus_variant"] == 3
         summary = query.summarize(ds)
     assert json.loads(json.dumps(summary, default=str))["n_variants"] == 3
+
+
+KEEP_CORNERS_WITHOUT_CORNERS = """
+title = "Kiln loop sampled only"
+[parameters]
+a = { nominal = 1.0, tol = "10%" }
+b = { nominal = 2.0, tol = "10%" }
+[plant]
+transfer = "1 / (s*(s + a)*(s + b))"
+[sweep]
+designs = ["lhs"]
+samples = 20
+[locus]
+points = 30
+keep = "corners"
+"""
+
+
+def test_keep_corners_without_corners_warns_once_and_reading_is_quiet(tmp_path):
+    import pytest
+
+    from sweep import plots
+    from sweep.errors import InputError
+    from sweep.warnings import NothingKeptWarning
+
+    path = tmp_path / "kiln.toml"
+    path.write_text(KEEP_CORNERS_WITHOUT_CORNERS)
+    with pytest.warns(NothingKeptWarning, match="no locus will be stored"):
+        config = parse_config(KEEP_CORNERS_WITHOUT_CORNERS, source=str(path))
+    out = runner.run(config, out=tmp_path / "kiln.nc", jobs=1, quiet=True)
+    # reading the result parses the stored config again: its warnings are not repeated
+    # (pytest's filterwarnings turns any SweepWarning into an error here)
+    with xr.open_dataset(out) as ds:
+        assert ds.sizes["locus_variant"] == 0
+        query.summarize(ds)
+        with pytest.raises(InputError, match='keep = "corners" selects none'):
+            plots.plot(ds, "locus", tmp_path / "locus.png")
