@@ -834,6 +834,10 @@ def _run_dask(tasks: deque, make: Callable, scheduler: str, write: Callable, don
     client = Client(scheduler)  # as_completed finds its client as the default one
     futures = []
     try:
+        if not client.scheduler_info().get("workers"):
+            # the chunks would wait silently for a worker that may never come
+            print(f"sweep: no Dask worker has joined {scheduler} yet; the chunks wait for one "
+                  f"(start workers with 'dask worker {scheduler}', or stop with Ctrl-C)", file=sys.stderr)
         futures = [client.submit(_compute, *make(i)[:6], pure=False) for i in tasks]
         tasks.clear()
         for fut in as_completed(futures):

@@ -556,3 +556,28 @@ def _failing_chunk(config, variants, gains, kept):
     if variants.start >= 10:
         raise ZeroDivisionError("chunk failed on purpose")
     return r.compute_chunk(config, variants, gains, kept)
+
+
+@pytest.mark.slow
+def test_dask_scheduler_without_workers_says_it_waits(tmp_path, monkeypatch):
+    distributed = pytest.importorskip("distributed")
+    import io
+    import threading
+
+    cfg = load_config(write_config(tmp_path))
+    with distributed.LocalCluster(n_workers=0, processes=False, protocol="tcp", host="127.0.0.1",
+                                  dashboard_address=None) as cluster:
+
+        class WorkerOnNotice(io.StringIO):
+            """stderr that lets a worker join once the run has said it waits for one."""
+
+            def write(self, text):
+                if "no Dask worker has joined" in text:
+                    threading.Thread(target=cluster.scale, args=(1,)).start()
+                return super().write(text)
+
+        err = WorkerOnNotice()
+        monkeypatch.setattr(sys, "stderr", err)
+        out = runner.run(cfg, out=tmp_path / "late.nc", scheduler=cluster.scheduler_address, quiet=True)
+    assert out.exists()
+    assert "start workers with 'dask worker tcp://127.0.0.1:" in err.getvalue()
