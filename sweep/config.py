@@ -113,6 +113,7 @@ import re  # noqa: E402
 import tomllib  # noqa: E402
 
 from .errors import ExpressionError, InputError  # noqa: E402
+from .errors import shorten  # noqa: E402
 
 _TOP_KEYS = ("title", "parameters", "plant", "loop", "sweep", "locus")
 _PARAM_KEYS = ("nominal", "tol", "low", "high", "dist", "units")
@@ -158,8 +159,8 @@ class _Reader:
     def known_keys(self, data: dict, allowed: tuple[str, ...], prefix: str) -> None:
         for key in data:
             if key not in allowed:
-                where = f"{prefix}.{_cut(key)}" if prefix else _cut(key)
-                raise self.fail(where, f"unknown key '{_cut(key)}'; {_suggest(key, allowed)}")
+                where = f"{prefix}.{shorten(key)}" if prefix else shorten(key)
+                raise self.fail(where, f"unknown key '{shorten(key)}'; {_suggest(key, allowed)}")
 
     def number(self, value: Any, field_name: str, *, allow_inf: bool = False) -> float:
         if isinstance(value, str) and allow_inf and value.strip().lower() in ("inf", "+inf", "infinity"):
@@ -200,14 +201,9 @@ class _Reader:
         return text
 
 
-def _cut(text: str, limit: int = 40) -> str:
-    """`text` cut to `limit` characters for a one-line message (a pasted blob must not come back whole)."""
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
 def _show(value: Any, limit: int = 40) -> str:
     """repr of a value (dates as written in TOML), cut to `limit` characters for a one-line message."""
-    return _cut(value.isoformat() if hasattr(value, "isoformat") else repr(value), limit)
+    return shorten(value.isoformat() if hasattr(value, "isoformat") else repr(value), limit)
 
 
 def _kind(value: Any) -> str:
@@ -300,7 +296,7 @@ def _one_tolerance(r: _Reader, value: Any, nominal: float, field_name: str, side
 def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
     where = f"parameters.{name}"
     if len(name) > MAX_NAME:  # names become netCDF variables and plot labels
-        raise r.fail(f"parameters.{_cut(name, 20)}", f"a parameter name of {len(name)} characters is too long (at most {MAX_NAME}); use a short name and put the description in a comment")
+        raise r.fail(f"parameters.{shorten(name, 20)}", f"a parameter name of {len(name)} characters is too long (at most {MAX_NAME}); use a short name and put the description in a comment")
     if not _NAME_RE.match(name):
         raise r.fail(where, f"parameter name {_show(name)} must start with a letter and use only letters, digits and _ (ASCII)")
     if name in _RESERVED_NAMES:
@@ -320,7 +316,7 @@ def _parameter(r: _Reader, name: str, spec: Any) -> Parameter:
     units = r.label(spec.get("units", ""), f"{where}.units")
     dist = r.string(spec.get("dist", "uniform"), f"{where}.dist")
     if dist not in DISTRIBUTIONS:
-        raise r.fail(f"{where}.dist", f"unknown distribution '{_cut(dist)}'; {_suggest(dist, DISTRIBUTIONS)}")
+        raise r.fail(f"{where}.dist", f"unknown distribution '{shorten(dist)}'; {_suggest(dist, DISTRIBUTIONS)}")
     has_tol = "tol" in spec
     has_bounds = "low" in spec or "high" in spec
     if has_tol and has_bounds:
@@ -442,7 +438,7 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
     sensor = _expression(r, loop.get("sensor", 1), "loop.sensor", known, allow_s=True)
     feedback = r.string(loop.get("feedback", "negative"), "loop.feedback")
     if feedback not in ("negative", "positive"):
-        raise r.fail("loop.feedback", f"unknown feedback '{_cut(feedback)}'; expected negative or positive")
+        raise r.fail("loop.feedback", f"unknown feedback '{shorten(feedback)}'; expected negative or positive")
     gain_range = (0.0, math.inf)
     if "gain_range" in loop:
         g = loop["gain_range"]
@@ -477,7 +473,7 @@ def parse_config(text: str, *, source: str = "<memory>", raw: bytes | None = Non
         for i, name in enumerate(d):
             name = r.string(name, f"sweep.designs[{i}]")
             if name not in DESIGNS:
-                raise r.fail(f"sweep.designs[{i}]", f"unknown design '{_cut(name)}'; {_suggest(name, DESIGNS)}")
+                raise r.fail(f"sweep.designs[{i}]", f"unknown design '{shorten(name)}'; {_suggest(name, DESIGNS)}")
         if len(set(d)) != len(d):
             raise r.fail("sweep.designs", "a design is listed twice; list each once")
         designs = tuple(d)
@@ -554,7 +550,7 @@ def _field_at(lines: list[str], number: int) -> str:
     for line in lines[: number - 1]:
         m = _HEADER.match(line)
         if m:
-            table = _cut(re.sub(r"\s+", "", m.group(1)).replace('"', "").replace("'", ""))
+            table = shorten(re.sub(r"\s+", "", m.group(1)).replace('"', "").replace("'", ""))
     line = lines[number - 1] if 0 < number <= len(lines) else ""
     m = _HEADER.match(line)
     if m:
@@ -563,7 +559,7 @@ def _field_at(lines: list[str], number: int) -> str:
     if not m:
         return ""
     key = re.sub(r"\s+", "", m.group(1))
-    return _cut(f"{table}.{key}" if table else key)
+    return shorten(f"{table}.{key}" if table else key)
 
 
 def _toml_error(r: _Reader, text: str, exc: Exception) -> InputError:

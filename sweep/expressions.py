@@ -38,6 +38,7 @@ import numpy as np
 
 from . import intervals as _iv
 from .errors import ExpressionError
+from .errors import shorten
 from .intervals import Interval
 from .polynomials import Rational
 
@@ -163,11 +164,6 @@ def _err(msg: str) -> ExpressionError:
     return ExpressionError(" ".join(msg.split()))
 
 
-def _short(text: str, limit: int = 40) -> str:
-    """`text` cut to `limit` characters for a message (inputs may be very long)."""
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
 def _tokenize(text: str) -> list[_Tok]:
     toks: list[_Tok] = []
     i = 0
@@ -182,13 +178,13 @@ def _tokenize(text: str) -> list[_Tok]:
             j = m.end()
             if j < n and (text[j].isalnum() or text[j] in "_."):
                 raise _err(
-                    f"malformed number '{_short(text[i:j + 1])}' at position {i + 1}; "
+                    f"malformed number '{shorten(text[i:j + 1])}' at position {i + 1}; "
                     f"write numbers like 12, 0.5 or 3.0e-3 and use '*' between a number and a name"
                 )
             lit = m.group(0)
             value = float(lit)
             if not np.isfinite(value):
-                raise _err(f"number '{_short(lit)}' at position {i + 1} is too large (not finite); numbers must be finite")
+                raise _err(f"number '{shorten(lit)}' at position {i + 1} is too large (not finite); numbers must be finite")
             toks.append(_Tok("num", lit, i, value))
             i = j
             continue
@@ -197,7 +193,7 @@ def _tokenize(text: str) -> list[_Tok]:
             word = m.group(0)
             if word.startswith("_"):
                 raise _err(
-                    f"name '{_short(word)}' at position {i + 1} is not allowed: names must start with a letter"
+                    f"name '{shorten(word)}' at position {i + 1} is not allowed: names must start with a letter"
                 )
             if word.lower() in ("nan", "inf", "infinity"):
                 raise _err(
@@ -238,7 +234,7 @@ class _Parser:
         return self.toks[self.i]
 
     def _found(self, t: _Tok) -> str:
-        return "the end of the text" if t.kind == "end" else f"'{_short(t.text)}' at position {t.pos + 1}"
+        return "the end of the text" if t.kind == "end" else f"'{shorten(t.text)}' at position {t.pos + 1}"
 
     def _is(self, *ops: str) -> bool:
         return self.tok.kind == "op" and self.tok.text in ops
@@ -309,11 +305,11 @@ class _Parser:
                 return self.call(t)
             if self._is("("):
                 # 's(s + 1)' or 'K(s + 1)' is a product written without '*'
-                times = f"to multiply, write '{_short(t.text)}*(...)'"
+                times = f"to multiply, write '{shorten(t.text)}*(...)'"
                 if t.text == "s":
                     raise _err(f"'s(' at position {t.pos + 1}: s is not a function; {times}")
                 raise _err(
-                    f"unknown function '{_short(t.text)}' at position {t.pos + 1}; allowed functions: "
+                    f"unknown function '{shorten(t.text)}' at position {t.pos + 1}; allowed functions: "
                     f"{', '.join(FUNCTIONS)}; {times}"
                 )
             if t.text == "s":
@@ -467,14 +463,14 @@ def check(node: Node, known: Any, *, allow_s: bool) -> None:
             close = [k for k in sorted(known) if k.lower() == nm.lower()]
             close = close or difflib.get_close_matches(nm, sorted(known), n=1, cutoff=0.5)  # short names: 'Kn' ~ 'Km'
             if close:
-                hint = f"did you mean '{close[0]}'? (or define '{_short(nm)}' as a parameter)"
+                hint = f"did you mean '{close[0]}'? (or define '{shorten(nm)}' as a parameter)"
             elif known:
                 shown = sorted(known)[:8]  # the message stays one readable line
                 more = f" and {len(known) - 8} more" if len(known) > 8 else ""
                 hint = f"define it as a parameter or correct the spelling (known names: {', '.join(shown)}{more})"
             else:
                 hint = "no parameters are defined; define it as a parameter"
-            raise _err(f"unknown name '{_short(nm)}'; {hint}")
+            raise _err(f"unknown name '{shorten(nm)}'; {hint}")
     if not has_s(node):
         return
     if not allow_s:
@@ -521,12 +517,12 @@ def _check_s(node: Node) -> None:
         return
     if isinstance(node, Power):
         if has_s(node.exponent):
-            raise _err(f"'s' in an exponent is not allowed (in '{_short(to_text(node))}')")
+            raise _err(f"'s' in an exponent is not allowed (in '{shorten(to_text(node))}')")
         if has_s(node.base):
             n = _literal_int(node.exponent)
             if n is None:
                 raise _err(
-                    f"a power of an expression in s needs a literal integer exponent, found '{_short(to_text(node.exponent))}'"
+                    f"a power of an expression in s needs a literal integer exponent, found '{shorten(to_text(node.exponent))}'"
                 )
             if abs(n) > MAX_S_POWER:
                 raise _err(f"exponent {n} on an expression in s is too large (at most {MAX_S_POWER})")

@@ -16,7 +16,7 @@ import numpy as np
 
 from . import expressions
 from .config import Config
-from .errors import InputError
+from .errors import InputError, shorten
 from .intervals import Interval
 from .polynomials import Rational
 from .warnings import CancellationWarning, NothingKeptWarning, UnusedParameterWarning
@@ -324,10 +324,6 @@ def _largest_root(coefs: np.ndarray) -> float:
     return float(np.max(np.abs(np.roots(c))))
 
 
-def _short(text: str, limit: int = 60) -> str:
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
 # a message lists at most this many parameters (it must stay one readable line)
 _LISTED = 4
 
@@ -411,7 +407,7 @@ _GUARD_NEEDS = {
 
 def _check_guard(config: Config, field_name: str, kind: str, guard: Any, role: str) -> None:
     """Prove that an s-free sub-expression stays inside its domain over the box."""
-    text = _short(expressions.to_text(guard))
+    text = shorten(expressions.to_text(guard), 60)
     with np.errstate(all="ignore"):
         v0 = float(np.asarray(expressions.evaluate(guard, config.nominal_values()), dtype=float).reshape(-1)[0])
     sign0 = np.sign(v0)
