@@ -39,7 +39,7 @@ def check_summary(config: Config) -> dict[str, Any]:
     # refuse here what `sweep run` would refuse (too many variants, a parameter
     # named like a dataset variable), so that a config that passes `check` also starts
     designs.total_count(config)
-    runner._check_names(config)
+    runner.check_names(config)
     N, D = loop.assemble(config, config.nominal_values())
     result = analyze(
         N[0], D[0], feedback=config.feedback, gain_range=config.gain_range, operating_gain=config.operating_gain

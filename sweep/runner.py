@@ -81,7 +81,7 @@ from .config import Config
 from .designs import Variants
 from .errors import InputError, SweepError
 
-__all__ = ["run", "compute_chunk", "Interrupted", "LockError", "nominal_gains", "kept_mask"]
+__all__ = ["run", "compute_chunk", "Interrupted", "LockError", "nominal_gains", "kept_mask", "check_names"]
 
 MANIFEST = "manifest.json"
 # dataset names a parameter may not take (DESIGN section 4)
@@ -290,7 +290,15 @@ def _pause_hook(kind: str, log: _Log) -> Callable[[int], None]:
 # ---------------------------------------------------------------- per-run data
 
 
-def _check_names(config: Config) -> None:
+def check_names(config: Config) -> None:
+    """Refuse a parameter named like a dimension or variable of the result file.
+
+    Raises
+    ------
+    InputError
+        Naming the parameter; `sweep check` calls this too, so a config that
+        passes `check` also starts.
+    """
     analysis_names: set[str] = set()
     try:
         from . import analysis
@@ -958,7 +966,7 @@ def run(
         Ctrl-C; finished parts are kept and the message holds the resume command.
     """
     t_start = time.perf_counter()
-    _check_names(config)
+    check_names(config)
     count = designs.total_count(config)  # refuses oversized designs before anything is written
     if scheduler is not None:
         _check_scheduler(scheduler)
