@@ -1233,19 +1233,18 @@ def certify(
     if status in _PROVEN and res.worst is not None and not math.isnan(upper):
         # the upper bound is a value attained by a point: confirm it with the full analysis
         full = _full_critical_gain(config, values, res.worst)
-        if not math.isnan(full):
-            # an attained value: the bound may not exceed it, whatever the rounding of the pencils
-            lower = min(lower, full)
         if math.isnan(full):
             msg += ("; note: the full analysis does not confirm the worst point as stable at the reference "
                     "gain (a marginal case); its value is that of the fast routine")
-        elif not (full == upper or abs(full - upper) <= 1e-9 * abs(upper)):
-            msg += (f"; the full analysis gives {full:.10g} at the worst point where the fast routine "
-                    f"gave {upper:.10g}: the full analysis is reported")
-            upper = full
-            lower = min(lower, upper)
-            if status == "certified" and not _within(lower, upper, rtol):
-                status = "budget"
+        else:
+            # an attained value: the bound may not exceed it, whatever the rounding of the pencils
+            lower = min(lower, full)
+            if not (full == upper or abs(full - upper) <= 1e-9 * abs(upper)):
+                msg += (f"; the full analysis gives {full:.10g} at the worst point where the fast routine "
+                        f"gave {upper:.10g}: the full analysis is reported")
+                upper = full
+                if status == "certified" and not _within(lower, upper, rtol):
+                    status = "budget"
     return result("branch-and-bound", lower, upper, res.boxes, res.worst, status, msg, where)
 
 
