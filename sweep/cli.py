@@ -175,6 +175,7 @@ def _say_if_compiling(args: argparse.Namespace) -> None:
         print("first use after installing: compiling the numeric kernels once (about 15 s on an idle "
               "2-core machine; later commands load them from the cache)", file=sys.stderr)
 
+
 def _cmd_check(args: argparse.Namespace) -> int:
     from . import report
     from .config import load_config

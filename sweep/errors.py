@@ -6,10 +6,10 @@ any other `SweepError` is a failure of the run itself (exit status 1).
 from __future__ import annotations
 
 
-
 def shorten(text: str, limit: int = 40) -> str:
     """``text`` cut to ``limit`` characters with "..." for a one-line message (inputs may be pasted blobs)."""
     return text if len(text) <= limit else text[: limit - 3] + "..."
+
 
 class SweepError(Exception):
     """A failure that is not the user's input (exit status 1)."""

@@ -662,6 +662,7 @@ def _warn_nothing_kept(config: Config) -> None:
             stacklevel=2,
         )
 
+
 def _fmt_root(z: complex) -> str:
     if abs(z.imag) <= 1e-12 * max(1.0, abs(z)):
         return f"{z.real:.6g}"

@@ -262,6 +262,7 @@ def _keep_setting(ds: xr.Dataset) -> str:
     except Exception:  # noqa: BLE001 - only the wording of a message depends on it
         return "[locus] keep"
 
+
 def _recomputed_loci(ds: xr.Dataset, indices: Sequence[int], gains: np.ndarray) -> dict[int, np.ndarray]:
     """Loci of a few variants whose loci the sweep did not keep, from the stored config.
 

@@ -103,6 +103,7 @@ def stored_config(ds: xr.Dataset):
         warnings.simplefilter("ignore", SweepWarning)
         return parse_config(str(text), source="<result file>")
 
+
 def reference_gain(ds: xr.Dataset) -> float:
     """The reference gain of the sweep.
 
